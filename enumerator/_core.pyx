@@ -1,0 +1,181 @@
+# cython: language_level=3, boundscheck=False, wraparound=False
+"""Thin binding over the C core: converts results to Python objects and maps
+every C error code to one Python exception, in one place (``_check``)."""
+from libc.stdint cimport uint8_t, int8_t, int16_t, uint16_t, uint32_t, int64_t, uint64_t
+from libc.stdlib cimport malloc, free
+from libc.string cimport memset
+
+cdef extern from "csrc/ctm_core.h" nogil:
+    ctypedef struct ctm_count:
+        pass
+    int CTM_API_VERSION
+    int CTM_OK, CTM_ENOMEM, CTM_EINVAL, CTM_EOVERFLOW
+    int CTM_NX_HALT, CTM_NX_UNDEF
+    int CTM_MAX_ENTRIES
+    const char *ctm_strerror(int code)
+    ctypedef struct ctm_map:
+        uint64_t *hashes
+        uint64_t *offs
+        uint32_t *lens
+        ctm_count *vals
+        size_t cap, size
+        uint8_t *arena
+    ctypedef struct ctm_unit:
+        int n, m
+        int64_t cap
+        unsigned deciders
+        int cut_depth
+        int prefix_len
+        const uint16_t *prefix
+        uint64_t probe_seed
+        ctm_map raw
+        ctm_count halting, non_halting, undecided
+        ctm_count *hist_steps
+        ctm_count *hist_len
+        uint64_t halting_nodes
+        int64_t longest_run, most_nonblank
+        uint64_t steps
+        uint16_t *cuts
+        size_t n_cuts
+        double est_nodes, est_steps
+        uint64_t rng
+        double probe_factor
+    int ctm_unit_init(ctm_unit *u)
+    int ctm_unit_run(ctm_unit *u)
+    void ctm_unit_free(ctm_unit *u)
+    ctypedef struct ctm_run_result:
+        int status
+        uint64_t steps
+        int state
+        uint64_t nonblank
+        uint8_t *output
+        size_t output_len
+        int64_t head
+    int ctm_run1d(int n, int m, const uint8_t *wr, const int8_t *mv, const int16_t *nx,
+                  uint8_t blank, uint64_t max_steps, ctm_run_result *res)
+    void ctm_free(void *p)
+
+cdef extern from "csrc/ctm_count.h" nogil:
+    uint64_t ctm_count_lo(const ctm_count *x)
+    uint64_t ctm_count_hi(const ctm_count *x)
+
+API_VERSION = CTM_API_VERSION
+MAX_ENTRIES = CTM_MAX_ENTRIES
+NX_HALT = CTM_NX_HALT
+NX_UNDEF = CTM_NX_UNDEF
+
+
+class CoreError(RuntimeError):
+    """The C core reported an error code."""
+
+
+cdef int _check(int rc) except -1:
+    if rc == CTM_OK:
+        return 0
+    if rc == CTM_ENOMEM:
+        raise MemoryError(ctm_strerror(rc).decode())
+    if rc == CTM_EINVAL or rc == CTM_EOVERFLOW:
+        raise ValueError(ctm_strerror(rc).decode())
+    raise CoreError(ctm_strerror(rc).decode())
+
+
+cdef object _int(const ctm_count *x):
+    return (int(ctm_count_hi(x)) << 64) | int(ctm_count_lo(x))
+
+
+cdef _setup(ctm_unit *u, int n, int m, int64_t cap, unsigned deciders):
+    memset(u, 0, sizeof(ctm_unit))
+    u.n = n
+    u.m = m
+    u.cap = cap
+    u.deciders = deciders
+    u.cut_depth = -1
+
+
+def run_unit(int n, int m, int64_t cap, unsigned deciders, prefix=(), int cut_depth=-1):
+    """Enumerate one work unit of the 1D space (n, m) under cap.
+
+    prefix: the move-option indices to follow through the first len(prefix)
+    branch points (the unit's subtree); cut_depth >= 0 lists, instead of
+    exploring, the branch points of that depth (they become their own units).
+    Returns a dict of exact Python ints; raw outputs carry a leading flag byte
+    (1 = mirror image to be added)."""
+    cdef ctm_unit u
+    cdef uint16_t *pre = NULL
+    cdef int rc, i, k = len(prefix)
+    cdef size_t j
+    _setup(&u, n, m, cap, deciders)
+    u.cut_depth = cut_depth
+    if k:
+        pre = <uint16_t *>malloc(k * sizeof(uint16_t))
+        if pre == NULL:
+            raise MemoryError("out of memory")
+        for i in range(k):
+            pre[i] = prefix[i]
+        u.prefix = pre
+        u.prefix_len = k
+    try:
+        _check(ctm_unit_init(&u))
+        with nogil:
+            rc = ctm_unit_run(&u)
+        _check(rc)
+        raw = {}
+        for j in range(u.raw.cap):
+            if u.raw.hashes[j]:
+                raw[u.raw.arena[u.raw.offs[j]:u.raw.offs[j] + u.raw.lens[j]]] = _int(&u.raw.vals[j])
+        out = dict(
+            raw=raw,
+            halting=_int(&u.halting),
+            non_halting=_int(&u.non_halting),
+            undecided=_int(&u.undecided),
+            hist_steps=[_int(&u.hist_steps[i]) for i in range(cap + 1)],
+            hist_len=[_int(&u.hist_len[i]) for i in range(cap + 2)],
+            halting_nodes=int(u.halting_nodes),
+            longest_run=int(u.longest_run),
+            most_nonblank=int(u.most_nonblank),
+            steps=int(u.steps),
+            cuts=[tuple(u.cuts[j * cut_depth + i] for i in range(cut_depth)) for j in range(u.n_cuts)]
+                 if cut_depth >= 0 else [],
+        )
+        return out
+    finally:
+        ctm_unit_free(&u)
+        free(pre)
+
+
+def probe(int n, int m, int64_t cap, unsigned deciders, uint64_t seed, int walks):
+    """Knuth's estimate of the tree: mean over random root-to-leaf walks of the
+    branch-point count and of the simulated steps. Returns (nodes, steps)."""
+    cdef ctm_unit u
+    cdef int w, rc = 0
+    _setup(&u, n, m, cap, deciders)
+    u.probe_seed = seed | 1
+    try:
+        _check(ctm_unit_init(&u))
+        with nogil:
+            for w in range(walks):
+                u.probe_factor = 1.0
+                rc = ctm_unit_run(&u)
+                if rc:
+                    break
+        _check(rc)
+        return u.est_nodes / walks, u.est_steps / walks
+    finally:
+        ctm_unit_free(&u)
+
+
+def run_machine(int n, int m, const uint8_t[:] wr, const int8_t[:] mv, const int16_t[:] nx,
+                int blank, uint64_t max_steps):
+    """Run one 1D machine; returns (status, steps, state, nonblank, output, head)."""
+    cdef ctm_run_result res
+    cdef int rc
+    if wr.shape[0] != n * m or mv.shape[0] != n * m or nx.shape[0] != n * m:
+        raise ValueError("transition arrays must have n*m entries")
+    with nogil:
+        rc = ctm_run1d(n, m, &wr[0], &mv[0], &nx[0], <uint8_t>blank, max_steps, &res)
+    _check(rc)
+    try:
+        output = bytes(res.output[:res.output_len])
+    finally:
+        ctm_free(res.output)
+    return res.status, int(res.steps), res.state, int(res.nonblank), output, int(res.head)

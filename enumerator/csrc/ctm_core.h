@@ -1,0 +1,111 @@
+/* ctm_core: the exhaustive tree-normal-form enumerator and the single-machine
+ * simulator. Plain C99 plus the unsigned __int128 extension of gcc/clang; no
+ * Python.h. Every function returns 0 or a negative CTM_E* code. */
+#ifndef CTM_CORE_H
+#define CTM_CORE_H
+
+#include <stddef.h>
+#include <stdint.h>
+
+#define CTM_API_VERSION 1
+
+#define CTM_OK 0
+#define CTM_ENOMEM (-1)    /* an allocation failed */
+#define CTM_EINVAL (-2)    /* bad argument: space, cap or prefix */
+#define CTM_EOVERFLOW (-3) /* a weight does not fit 128 bits */
+#define CTM_ESTOP (-4)     /* the caller asked to stop */
+
+#define CTM_MAX_ENTRIES 64 /* n*m, the number of transition-table entries */
+
+/* decider bits */
+#define CTM_DEC_FULL 1u    /* fully defined table, no HALT entry */
+#define CTM_DEC_ESCAPE 2u  /* escapee on fresh blank tape */
+#define CTM_DEC_CYCLE 4u   /* repeated configuration */
+
+typedef unsigned __int128 ctm_count;
+
+const char *ctm_strerror(int code);
+
+/* ---- byte-string -> count map (exact 128-bit values) ---- */
+typedef struct {
+    uint64_t *hashes; /* 0 = empty slot */
+    uint64_t *offs;
+    uint32_t *lens;
+    ctm_count *vals;
+    size_t cap, size;
+    uint8_t *arena;
+    size_t arena_len, arena_cap;
+} ctm_map;
+
+int ctm_map_init(ctm_map *map);
+void ctm_map_free(ctm_map *map);
+int ctm_map_add(ctm_map *map, const uint8_t *key, uint32_t len, ctm_count val);
+
+/* ---- the enumeration of one work unit ---- */
+typedef struct {
+    /* inputs */
+    int n, m;           /* states, symbols */
+    int64_t cap;        /* step cap T */
+    unsigned deciders;  /* CTM_DEC_* bits */
+    int cut_depth;      /* >= 0: stop at branch points of this depth and list them */
+    int prefix_len;     /* > 0: follow prefix[] through the first prefix_len branch points */
+    const uint16_t *prefix;
+    uint64_t probe_seed; /* != 0: one random root-to-leaf walk per call (Knuth estimate) */
+
+    /* outputs: weights count machines on blank 0, mirror images included */
+    ctm_map raw;         /* key = mirrored flag byte + output symbols */
+    ctm_count halting, non_halting, undecided;
+    ctm_count *hist_steps; /* [cap + 1], index = halting step */
+    ctm_count *hist_len;   /* [cap + 2], index = output length */
+    uint64_t halting_nodes;
+    int64_t longest_run;
+    int64_t most_nonblank;
+    uint64_t steps;      /* simulated steps, for speed figures */
+    uint16_t *cuts;      /* cut_depth paths, cut_depth entries each */
+    size_t n_cuts, cuts_cap;
+    double est_nodes, est_steps; /* probe mode */
+
+    /* private state */
+    int nent, used, ndef;
+    int8_t def[CTM_MAX_ENTRIES];
+    uint8_t wr[CTM_MAX_ENTRIES];
+    int8_t mv[CTM_MAX_ENTRIES];
+    uint8_t nx[CTM_MAX_ENTRIES];
+    ctm_count pow_opts[CTM_MAX_ENTRIES + 1];
+    uint16_t path[CTM_MAX_ENTRIES];
+    uint8_t *tape, *snap, *scratch, *saves;
+    int64_t tape_len;
+    uint64_t rng;
+    double probe_factor;
+    int mirror_flag;            /* 1 under the first move R: count mirror images too */
+    int64_t touch_lo, touch_hi; /* dirty tape span a finished subtree leaves */
+} ctm_unit;
+
+int ctm_unit_init(ctm_unit *u);   /* after the inputs are set */
+int ctm_unit_run(ctm_unit *u);
+void ctm_unit_free(ctm_unit *u);
+
+/* ---- one machine, 1D ----
+ * Entry e = state*m + symbol (states 0-based). nx[e] >= 0: MOVE to that state;
+ * nx[e] == CTM_NX_HALT: HALT(wr[e]); nx[e] == CTM_NX_UNDEF: undefined. */
+#define CTM_NX_HALT (-1)
+#define CTM_NX_UNDEF (-2)
+#define CTM_RUN_HALTED 0
+#define CTM_RUN_CAPPED 1
+#define CTM_RUN_UNDEFINED 2
+
+typedef struct {
+    int status;
+    uint64_t steps;
+    int state;          /* final state (0-based) */
+    uint64_t nonblank;
+    uint8_t *output;    /* visited span, caller frees with ctm_free */
+    size_t output_len;
+    int64_t head;       /* head position relative to the output's first cell */
+} ctm_run_result;
+
+int ctm_run1d(int n, int m, const uint8_t *wr, const int8_t *mv, const int16_t *nx,
+              uint8_t blank, uint64_t max_steps, ctm_run_result *res);
+void ctm_free(void *p);
+
+#endif

@@ -1,0 +1,85 @@
+"""Machine spaces (d, n, m) of the busy-beaver formalism (DESIGN.md section 1)."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from ..errors import SpaceError, TooLargeError
+
+# The C core keeps weights in 128 bits: the space size times the mirror
+# factor 2 times the m blank images must stay below 2**127.
+COUNT_BITS = 127
+MAX_ENTRIES = 64
+MAX_CAP = 10**7
+
+
+@dataclass(frozen=True)
+class Space:
+    """dims in {1, 2}; states n >= 1; symbols m >= 2."""
+
+    dims: int
+    states: int
+    symbols: int
+
+    def __post_init__(self):
+        for name in ("dims", "states", "symbols"):
+            if not isinstance(getattr(self, name), int) or isinstance(getattr(self, name), bool):
+                raise SpaceError(f"{name} must be a whole number, got {getattr(self, name)!r}")
+        if self.dims not in (1, 2):
+            raise SpaceError(f"dimension {self.dims} is not supported; use 1 or 2")
+        if self.states < 1:
+            raise SpaceError(f"a machine needs at least 1 state, got {self.states}; use --states 1 or more")
+        if self.symbols < 2:
+            raise SpaceError(
+                f"a machine needs at least 2 symbols, got {self.symbols}; use --symbols 2 or more"
+            )
+        if self.symbols > 255:
+            raise SpaceError(f"{self.symbols} symbols is over the limit of 255; use fewer symbols")
+
+    @property
+    def directions(self) -> int:
+        return 2 if self.dims == 1 else 4
+
+    @property
+    def entries(self) -> int:
+        """Entries of the transition table, n*m."""
+        return self.states * self.symbols
+
+    @property
+    def options(self) -> int:
+        """Choices per entry: every MOVE(write, direction, next) and every HALT(write)."""
+        return self.directions * self.states * self.symbols + self.symbols
+
+    @property
+    def size(self) -> int:
+        """Number of machines, options^(n*m), exact."""
+        return self.options**self.entries
+
+    @property
+    def label(self) -> str:
+        return f"{self.dims}D ({self.states},{self.symbols})"
+
+    def to_dict(self) -> dict:
+        return {"dims": self.dims, "states": self.states, "symbols": self.symbols}
+
+    def check_countable(self) -> None:
+        """Refuse a space whose exact counts would not fit the core's 128 bits."""
+        if self.entries > MAX_ENTRIES:
+            raise TooLargeError(
+                f"{self.label} has {self.entries} table entries, over the core's limit of "
+                f"{MAX_ENTRIES}; use fewer states or symbols, or --sample"
+            )
+        if (self.size * 2 * self.symbols).bit_length() > COUNT_BITS:
+            raise TooLargeError(
+                f"{self.label} holds {self.size:.3e} machines, too many for exact 128-bit "
+                "counts; use fewer states or symbols"
+            )
+
+
+def check_cap(cap) -> int:
+    if not isinstance(cap, int) or isinstance(cap, bool):
+        raise SpaceError(f"the step cap must be a whole number, got {cap!r}")
+    if cap < 1:
+        raise SpaceError(f"the step cap must be at least 1, got {cap}; use --max-steps 1 or more")
+    if cap > MAX_CAP:
+        raise SpaceError(f"a step cap of {cap} is over the limit of {MAX_CAP}; use a smaller --max-steps")
+    return cap

@@ -1,0 +1,154 @@
+"""The exact result of an enumeration, its symmetry expansion and its invariants."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from ..errors import InvariantError
+from .space import Space
+
+
+@dataclass
+class Partial:
+    """Sum of work-unit results before symmetry expansion. Merging is exact
+    integer addition, so any split of the tree gives the same sum."""
+
+    raw: dict = field(default_factory=dict)  # flag byte + symbols -> weight on blank 0
+    halting: int = 0
+    non_halting: int = 0
+    undecided: int = 0
+    hist_steps: list = field(default_factory=list)
+    hist_len: list = field(default_factory=list)
+    halting_nodes: int = 0
+    longest_run: int = 0
+    most_nonblank: int = 0
+    steps: int = 0
+
+    def add(self, unit: dict) -> None:
+        raw = self.raw
+        for key, w in unit["raw"].items():
+            raw[key] = raw.get(key, 0) + w
+        for name in ("halting", "non_halting", "undecided", "halting_nodes", "steps"):
+            setattr(self, name, getattr(self, name) + unit[name])
+        self.hist_steps = _add_lists(self.hist_steps, unit["hist_steps"])
+        self.hist_len = _add_lists(self.hist_len, unit["hist_len"])
+        self.longest_run = max(self.longest_run, unit["longest_run"])
+        self.most_nonblank = max(self.most_nonblank, unit["most_nonblank"])
+
+
+def _add_lists(a: list, b: list) -> list:
+    if len(a) < len(b):
+        a, b = b, a
+    out = list(a)
+    for i, v in enumerate(b):
+        out[i] += v
+    return out
+
+
+def _trim(hist: list) -> list:
+    end = len(hist)
+    while end and hist[end - 1] == 0:
+        end -= 1
+    return hist[:end]
+
+
+def blank_swaps(m: int) -> list[bytes]:
+    """Translation tables of the transpositions (0 b), b = 0..m-1 (b = 0 is the identity)."""
+    tables = []
+    for b in range(m):
+        perm = list(range(256))
+        perm[0], perm[b] = b, 0
+        tables.append(bytes(perm))
+    return tables
+
+
+@dataclass
+class Tally:
+    """Exact counts of one exhaustive build.
+
+    groups maps a shape, (length,) in 1D, to {output symbols: count}, where a
+    count is the number of (machine, blank) runs with that output. The totals
+    count machines and hold for every blank alike, by the blank symmetry."""
+
+    space: Space
+    cap: int
+    groups: dict = field(repr=False)
+    halting: int
+    non_halting: int
+    undecided: int
+    halting_nodes: int
+    steps_hist: list
+    length_hist: list
+    longest_run: int
+    most_nonblank: int
+    steps: int
+    deciders: tuple = ()
+    units: int = 1
+
+    @property
+    def blanks(self) -> int:
+        return self.space.symbols
+
+    @property
+    def total_count(self) -> int:
+        return sum(sum(g.values()) for g in self.groups.values())
+
+    def count(self, symbols) -> int:
+        key = bytes(symbols)
+        return self.groups.get((len(key),), {}).get(key, 0)
+
+    def distinct(self) -> int:
+        return sum(len(g) for g in self.groups.values())
+
+    @classmethod
+    def from_partial(cls, space: Space, cap: int, part: Partial, **extra) -> "Tally":
+        """Expand mirror images and blank relabellings, then check every invariant."""
+        swaps = blank_swaps(space.symbols)
+        flat: dict[bytes, int] = {}
+        for key, w in part.raw.items():
+            out = key[1:]
+            images = (out, out[::-1]) if key[0] else (out,)
+            for img in images:
+                for table in swaps:
+                    k = img.translate(table)
+                    flat[k] = flat.get(k, 0) + w
+        groups: dict = {}
+        for k in sorted(flat, key=lambda s: (len(s), s)):
+            groups.setdefault((len(k),), {})[k] = flat[k]
+        tally = cls(
+            space=space,
+            cap=cap,
+            groups=groups,
+            halting=part.halting,
+            non_halting=part.non_halting,
+            undecided=part.undecided,
+            halting_nodes=part.halting_nodes,
+            steps_hist=_trim(part.hist_steps),
+            length_hist=_trim(part.hist_len),
+            longest_run=part.longest_run,
+            most_nonblank=part.most_nonblank,
+            steps=part.steps,
+            **extra,
+        )
+        tally.check()
+        return tally
+
+    def check(self) -> None:
+        """Raise InvariantError unless every exactness invariant holds."""
+        total = self.halting + self.non_halting + self.undecided
+        if total != self.space.size:
+            raise InvariantError(
+                f"halting + non-halting + undecided = {total}, not the space size "
+                f"{self.space.size}; this is a bug, please report it"
+            )
+        if sum(self.steps_hist) != self.halting or sum(self.length_hist) != self.halting:
+            raise InvariantError("a histogram does not sum to the halting weight; this is a bug")
+        if self.total_count != self.blanks * self.halting:
+            raise InvariantError(
+                f"the expanded counts sum to {self.total_count}, not blanks x halting = "
+                f"{self.blanks * self.halting}; the symmetry expansion is inconsistent (a bug)"
+            )
+        for shape, group in self.groups.items():
+            length = shape[0]
+            hist = self.length_hist[length] if length < len(self.length_hist) else 0
+            if sum(group.values()) != self.blanks * hist:
+                raise InvariantError(f"length {length}: counts disagree with the length histogram (a bug)")

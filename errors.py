@@ -1,0 +1,65 @@
+"""One error hierarchy for the package. Every message says what is wrong and
+what to do; the CLI prints it on one line and exits non-zero."""
+
+
+class CtmtabError(Exception):
+    """Base of every error ctmtab raises on purpose."""
+
+    exit_code = 2
+
+
+class SpaceError(CtmtabError, ValueError):
+    """An impossible machine space, cap or build request."""
+
+
+class TooLargeError(CtmtabError, ValueError):
+    """An exhaustive request that would take far too long or overflow the counts."""
+
+
+class NotationError(CtmtabError, ValueError):
+    """A machine in the compact text notation does not parse."""
+
+
+class InvariantError(CtmtabError):
+    """A build broke one of its own exactness invariants: a bug, never bad input."""
+
+    exit_code = 3
+
+
+class TableError(CtmtabError, ValueError):
+    """A table file is malformed, truncated, corrupt or inconsistent."""
+
+
+class BadMagicError(TableError):
+    """The file does not start with the ctmtab magic bytes."""
+
+
+class TruncatedError(TableError):
+    """The file ends before a declared section does."""
+
+
+class ChecksumError(TableError):
+    """A stored sha256 does not match the bytes."""
+
+
+class VersionError(TableError):
+    """The file's format major version is unknown to this reader."""
+
+
+class SizeLimitError(TableError):
+    """A declared size is over the reader's safety limit."""
+
+
+class InconsistentTableError(TableError):
+    """The metadata contradicts the body."""
+
+
+class MergeError(CtmtabError, ValueError):
+    """Tables or shards that cannot be merged into one table."""
+
+
+class MissingKeyError(CtmtabError, KeyError):
+    """A key the table never produced, under the 'raise' missing-key policy."""
+
+    def __str__(self):  # KeyError would print the repr of the message
+        return str(self.args[0]) if self.args else ""

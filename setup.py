@@ -1,0 +1,35 @@
+"""Build of the compiled core. Cython is a build requirement (pyproject.toml),
+so the generated C is never committed or shipped."""
+from Cython.Build import cythonize
+from setuptools import Extension, setup
+from setuptools.command.build_py import build_py
+
+
+class BuildPy(build_py):
+    """The ctmtab package maps to the repository root; keep setup.py out of it."""
+
+    def find_package_modules(self, package, package_dir):
+        modules = super().find_package_modules(package, package_dir)
+        return [mod for mod in modules if not (package == "ctmtab" and mod[1] == "setup")]
+
+
+core = Extension(
+    "ctmtab.enumerator._core",
+    sources=["enumerator/_core.pyx", "enumerator/csrc/ctm_core.c"],
+    include_dirs=["enumerator"],
+    extra_compile_args=["-O3", "-std=gnu99"],
+)
+
+setup(
+    # One import namespace, ctmtab, over the top-level folders (DESIGN.md section 8).
+    package_dir={
+        "ctmtab": ".",
+        "ctmtab.enumerator": "enumerator",
+        "ctmtab.tables": "tables",
+        "ctmtab.tools": "tools",
+    },
+    packages=["ctmtab", "ctmtab.enumerator", "ctmtab.tables", "ctmtab.tools"],
+    package_data={"ctmtab.tables": ["*.ctmt"]},
+    cmdclass={"build_py": BuildPy},
+    ext_modules=cythonize([core], language_level=3),
+)

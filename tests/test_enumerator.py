@@ -1,0 +1,124 @@
+"""The exhaustive 1D enumerator against published values and its own symmetries."""
+from itertools import product
+
+import pytest
+
+from ctmtab.enumerator import DECIDERS, Space, build
+
+from conftest import exact_table
+
+# Busy beaver S(n) (steps, the halting one included) and Sigma(n) (ones), 2 symbols:
+# OEIS A060843 / A028444; Rado 1962; Lin & Rado 1965; Brady 1983 (verified, REFERENCES.md)
+BUSY_BEAVER = {1: (1, 1), 2: (6, 4), 3: (21, 6), 4: (107, 13)}
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 4])
+def test_busy_beaver_values(n):
+    steps, ones = BUSY_BEAVER[n]
+    t = exact_table(n, 2, steps)
+    assert t.longest_run == steps
+    assert t.most_nonblank == ones
+
+
+def test_busy_beaver_two_states_three_symbols():
+    # S(2,3) = 38, Lafitte & Papazian 2007 (verified, REFERENCES.md)
+    t = exact_table(2, 3, 38)
+    assert t.longest_run == 38
+    # the champion alone reaches step 38: one step less of cap, and nothing does
+    assert exact_table(2, 3, 37).longest_run < 38
+
+
+def test_busy_beaver_not_exceeded_at_larger_cap():
+    # no 3-state machine halts after step 21 (S(3) = 21, Lin & Rado 1965, verified)
+    t = exact_table(3, 2, 60)
+    assert t.longest_run == 21
+    assert exact_table(3, 2, 21).groups == t.groups
+
+
+@pytest.mark.parametrize("n,nodes", [(2, 19), (3, 1_772), (4, 249_693)])
+def test_halting_tree_normal_form_nodes(n, nodes):
+    # halting nodes of the tree-normal-form enumeration, arXiv:2509.12337 (verified, REFERENCES.md)
+    steps, _ = BUSY_BEAVER[n]
+    assert exact_table(n, 2, steps).halting_nodes == nodes
+
+
+def test_four_state_table_covers_every_string_up_to_length_8():
+    # Delahaye & Zenil 2012, arXiv:1101.4795 (verified, abstract): (4,2) with cap S(4) = 107
+    # produces every binary string of length <= 8, and only some longer strings
+    t = exact_table(4, 2, 107)
+    for length in range(1, 9):
+        assert len(t.groups[(length,)]) == 2**length, length
+    assert 0 < len(t.groups[(9,)]) < 2**9
+
+
+def test_four_state_distinct_strings():
+    # 1,832 distinct strings in the (4,2) table (memory, REFERENCES.md); reproduced here by
+    # the tree search, and its counts agree with the brute force on the smaller spaces
+    assert exact_table(4, 2, 107).distinct() == 1832
+
+
+@pytest.mark.parametrize("n,cap", [(2, 6), (3, 21), (4, 107), (3, 7)])
+def test_binary_tables_are_closed_under_reversal_and_complement(n, cap):
+    t = exact_table(n, 2, cap)
+    swap = bytes([1, 0])
+    for group in t.groups.values():
+        for s, c in group.items():
+            assert group[s[::-1]] == c
+            assert group[s.translate(swap + bytes(254))] == c
+
+
+def test_ternary_table_is_closed_under_reversal_and_blank_swaps():
+    t = exact_table(2, 3, 38)
+    for group in t.groups.values():
+        for s, c in group.items():
+            assert group[s[::-1]] == c
+            for b in (1, 2):
+                perm = list(range(256))
+                perm[0], perm[b] = b, 0
+                assert group[s.translate(bytes(perm))] == c
+
+
+@pytest.mark.parametrize("subset", [(), ("full-table",), ("escapee",), ("cycler",), tuple(DECIDERS)])
+def test_deciders_never_change_a_count(subset):
+    base = exact_table(3, 2, 21)
+    t = build(Space(1, 3, 2), 21, deciders=subset, budget_hours=None)
+    assert t.groups == base.groups
+    assert t.halting == base.halting and t.steps_hist == base.steps_hist
+    assert t.non_halting + t.undecided == base.non_halting + base.undecided
+    if not subset:
+        assert t.non_halting == 0
+
+
+def test_deciders_prove_what_they_claim():
+    # every decider moves weight from undecided to proven, never the other way
+    none = build(Space(1, 3, 2), 21, deciders=(), budget_hours=None)
+    each = [build(Space(1, 3, 2), 21, deciders=(d,), budget_hours=None) for d in DECIDERS]
+    assert all(t.undecided < none.undecided for t in each)
+    assert exact_table(3, 2, 21).undecided <= min(t.undecided for t in each)
+
+
+@pytest.mark.parametrize("split", [1, 2, 3])
+def test_work_unit_split_gives_identical_tally(split):
+    whole = exact_table(3, 2, 21)
+    t = exact_table(3, 2, 21, split)
+    assert t.units > 1
+    for name in ("groups", "halting", "non_halting", "undecided", "halting_nodes",
+                 "steps_hist", "length_hist", "longest_run", "most_nonblank"):
+        assert getattr(t, name) == getattr(whole, name), name
+
+
+def test_step_histogram_sums_and_cap_truncation():
+    full = exact_table(3, 2, 21)
+    short = exact_table(3, 2, 7)
+    # a run that halts within 7 steps halts at the same step under cap 21
+    assert short.steps_hist == full.steps_hist[:8]
+    assert short.halting == sum(full.steps_hist[:8])
+    assert short.undecided >= full.halting - short.halting
+
+
+def test_one_state_at_cap_one_by_hand():
+    # (1,2), cap 1: a run halts at step 1 iff entry (A,0) is HALT(0) or HALT(1), whatever
+    # the other entry holds (6 options): 12 machines, on each of the 2 blanks
+    t = exact_table(1, 2, 1)
+    assert t.halting == 12
+    assert t.groups == {(1,): {b"\x00": 12, b"\x01": 12}}

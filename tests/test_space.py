@@ -1,0 +1,55 @@
+import pytest
+
+from ctmtab.enumerator import Space, build
+from ctmtab.errors import SpaceError, TooLargeError
+
+from conftest import exact_table
+
+
+# OEIS A141475, (4n+2)^(2n) machines with n states and 2 symbols (verified, REFERENCES.md)
+A141475 = [36, 10_000, 7_529_536, 11_019_960_576, 26_559_922_791_424]
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 4, 5])
+def test_binary_space_sizes_match_oeis(n):
+    assert Space(1, n, 2).size == A141475[n - 1]
+
+
+def test_2d_size_matches_published_count():
+    # (4nm+m)^(nm): 34^8 for 2D (4,2), the count in Zenil et al., PeerJ CS 2015 (memory, REFERENCES.md)
+    assert Space(2, 4, 2).size == 1_785_793_904_896
+
+
+@pytest.mark.parametrize("args,fragment", [
+    ((1, 0, 2), "at least 1 state"),
+    ((1, 2, 1), "at least 2 symbols"),
+    ((3, 2, 2), "dimension 3"),
+    ((1, 2.5, 2), "whole number"),
+])
+def test_impossible_spaces_are_refused(args, fragment):
+    with pytest.raises(SpaceError, match=fragment):
+        Space(*args)
+
+
+@pytest.mark.parametrize("cap", [0, -3])
+def test_cap_below_one_is_refused(cap):
+    with pytest.raises(SpaceError, match="at least 1"):
+        build(Space(1, 2, 2), cap)
+
+
+def test_space_too_large_for_exact_counts_is_refused():
+    with pytest.raises(TooLargeError, match="128-bit"):
+        build(Space(1, 6, 6), 10)
+
+
+def test_hopeless_exhaustive_request_is_refused_before_work():
+    # (6,2) holds about 5.8e16 machines; the estimate puts it far over a day
+    with pytest.raises(TooLargeError, match="CPU-hours"):
+        build(Space(1, 6, 2), 1000)
+
+
+@pytest.mark.parametrize("n,m,cap", [(1, 2, 1), (2, 2, 6), (3, 2, 21), (4, 2, 107), (2, 3, 38), (3, 2, 5)])
+def test_invariant_holds(n, m, cap):
+    t = exact_table(n, m, cap)
+    assert t.halting + t.non_halting + t.undecided == Space(1, n, m).size
+    t.check()
