@@ -1,0 +1,79 @@
+"""Columnar arrays of the table body: base-m key codes and exact counts.
+
+Counts are stored as `limbs` little-endian uint64 words per entry, so they stay
+exact beyond 2^64. Keys are uint64 base-m codes (most significant symbol
+first) when m^length fits 64 bits, else one uint8 per symbol."""
+from __future__ import annotations
+
+import numpy as np
+
+U64 = np.dtype("<u8")
+
+
+def limbs_needed(values) -> int:
+    top = max(values, default=0)
+    return max(1, (top.bit_length() + 63) // 64)
+
+
+def encode_counts(values: list) -> dict:
+    """Exact Python ints -> {"limbs", "data"}."""
+    limbs = limbs_needed(values)
+    if limbs == 1:
+        return {"limbs": 1, "data": np.asarray(values, dtype=U64).tobytes()}
+    words = np.empty((len(values), limbs), dtype=U64)
+    mask = (1 << 64) - 1
+    for i, v in enumerate(values):
+        for j in range(limbs):
+            words[i, j] = (v >> (64 * j)) & mask
+    return {"limbs": limbs, "data": words.tobytes()}
+
+
+def decode_counts(spec: dict, n: int) -> np.ndarray:
+    """-> uint64 array (one limb) or object array of exact Python ints."""
+    limbs = spec["limbs"]
+    words = np.frombuffer(spec["data"], dtype=U64)
+    if limbs == 1:
+        return words
+    words = words.reshape(n, limbs)
+    out = np.empty(n, dtype=object)
+    for i in range(n):
+        out[i] = sum(int(words[i, j]) << (64 * j) for j in range(limbs))
+    return out
+
+
+def exact_sum(counts: np.ndarray) -> int:
+    """Sum without uint64 wrap-around."""
+    if counts.dtype == object:
+        return int(sum(counts))
+    lo = int(np.sum(counts & np.uint64(0xFFFFFFFF), dtype=np.uint64))
+    hi = int(np.sum(counts >> np.uint64(32), dtype=np.uint64))
+    return (hi << 32) + lo
+
+
+def fits_code64(m: int, length: int) -> bool:
+    return m**length <= 1 << 64
+
+
+def powers(m: int, length: int) -> np.ndarray:
+    return np.array([m ** (length - 1 - j) for j in range(length)], dtype=np.uint64)
+
+
+def codes_of(symbols: np.ndarray, m: int) -> np.ndarray:
+    """Rows of symbols (N x L) -> uint64 base-m codes."""
+    symbols = np.asarray(symbols)
+    code = np.zeros(symbols.shape[0], dtype=np.uint64)
+    mm = np.uint64(m)
+    for j in range(symbols.shape[1]):
+        code = code * mm + symbols[:, j].astype(np.uint64)
+    return code
+
+
+def symbols_of(codes: np.ndarray, m: int, length: int) -> np.ndarray:
+    """uint64 codes -> N x L uint8 symbols."""
+    out = np.empty((len(codes), length), dtype=np.uint8)
+    rest = codes.copy()
+    mm = np.uint64(m)
+    for j in range(length - 1, -1, -1):
+        out[:, j] = (rest % mm).astype(np.uint8)
+        rest //= mm
+    return out

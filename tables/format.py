@@ -1,0 +1,154 @@
+"""The ctmtab table file, format 1.0 (specified in docs/FORMAT.md).
+
+    preamble  56 bytes: magic, major, minor, header length, body length, header sha256
+    header    msgpack map, at most MAX_HEADER bytes, readable without the body
+    body      zstd-compressed msgpack map of columnar little-endian arrays
+
+Every read is bounded and checked before anything is allocated or decompressed."""
+from __future__ import annotations
+
+import hashlib
+import io
+import os
+import struct
+import tempfile
+import warnings
+
+import msgpack
+import zstandard
+
+from ..errors import (BadMagicError, ChecksumError, InconsistentTableError, SizeLimitError,
+                      TableError, TruncatedError, VersionError)
+
+MAGIC = b"\x8cCTMTAB\x1a"
+MAJOR, MINOR = 1, 0
+PREAMBLE = struct.Struct("<8sHHIQ32s")  # magic, major, minor, header len, body len, header sha256
+MAX_HEADER = 1 << 20
+MAX_BODY = 1 << 31  # default cap on the decompressed body; load(max_body=...) changes it
+ZSTD_LEVEL = 12
+
+
+class NewerMinorWarning(UserWarning):
+    """The file has a newer minor version: it loads, unknown keys are ignored."""
+
+
+def _pack(obj) -> bytes:
+    return msgpack.packb(obj, use_bin_type=True)
+
+
+def _unpack(data: bytes, what: str):
+    def no_ext(code, _data):
+        raise TableError(f"the {what} holds a msgpack extension type {code}; the file is not a ctmtab table")
+
+    try:
+        return msgpack.unpackb(data, raw=False, strict_map_key=True, ext_hook=no_ext,
+                               timestamp=0)  # length limits default to len(data)
+    except TableError:
+        raise
+    except (ValueError, TypeError, msgpack.UnpackException, RecursionError) as exc:
+        raise TableError(f"the {what} is not valid msgpack ({exc}); the file is corrupt, fetch it again") from None
+
+
+def encode(header: dict, body: dict) -> bytes:
+    """Serialise one table. The body bytes depend on the body dict alone."""
+    raw = _pack(body)
+    compressed = zstandard.ZstdCompressor(level=ZSTD_LEVEL, write_content_size=True,
+                                          write_checksum=False).compress(raw)
+    header = dict(header)
+    header["body"] = {"codec": "zstd", "raw_size": len(raw), "sha256": hashlib.sha256(compressed).hexdigest()}
+    head = _pack(header)
+    if len(head) > MAX_HEADER:
+        raise TableError(f"the header is {len(head)} bytes, over the {MAX_HEADER} limit; shorten the notes")
+    pre = PREAMBLE.pack(MAGIC, MAJOR, MINOR, len(head), len(compressed), hashlib.sha256(head).digest())
+    return pre + head + compressed
+
+
+def write_atomic(path, data: bytes) -> None:
+    """Write to a temporary file beside the target, fsync, then rename over it:
+    no half-written table ever appears under the final name."""
+    path = os.fspath(path)
+    folder = os.path.dirname(os.path.abspath(path))
+    fd, tmp = tempfile.mkstemp(prefix=os.path.basename(path) + ".", suffix=".tmp", dir=folder)
+    try:
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; a table is for sharing
+        with os.fdopen(fd, "wb") as f:
+            f.write(data)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+
+
+def read_header(data: bytes, where: str = "table") -> tuple[dict, int]:
+    """Check the preamble and header; return the header and the body offset."""
+    if len(data) < len(MAGIC) or data[: len(MAGIC)] != MAGIC:
+        if len(data) < len(MAGIC) and MAGIC.startswith(data):
+            raise TruncatedError(f"{where}: the file ends inside the magic bytes; the download is incomplete")
+        raise BadMagicError(f"{where}: not a ctmtab table (wrong magic bytes); check the file name")
+    if len(data) < PREAMBLE.size:
+        raise TruncatedError(f"{where}: the file ends inside the preamble ({len(data)} bytes); fetch it again")
+    _, major, minor, head_len, body_len, head_sha = PREAMBLE.unpack_from(data)
+    if major != MAJOR:
+        raise VersionError(
+            f"{where}: table format {major}.{minor} is not readable by this ctmtab (reads {MAJOR}.x); "
+            "upgrade ctmtab" if major > MAJOR else f"{where}: table format {major}.{minor} is unknown"
+        )
+    if head_len > MAX_HEADER:
+        raise SizeLimitError(f"{where}: the header declares {head_len} bytes, over the {MAX_HEADER} limit")
+    rest = len(data) - PREAMBLE.size  # subtract, never add: no overflow
+    if head_len > rest:
+        raise TruncatedError(f"{where}: the file ends inside the header; the download is incomplete, fetch it again")
+    if body_len > rest - head_len:
+        raise TruncatedError(f"{where}: the file ends inside the body; the download is incomplete, fetch it again")
+    if body_len != rest - head_len:
+        raise TableError(f"{where}: {rest - head_len - body_len} bytes trail the body; the file is corrupt")
+    head = data[PREAMBLE.size: PREAMBLE.size + head_len]
+    if hashlib.sha256(head).digest() != head_sha:
+        raise ChecksumError(f"{where}: the header checksum does not match; the file is corrupt, fetch it again")
+    header = _unpack(head, "header")
+    if not isinstance(header, dict):
+        raise TableError(f"{where}: the header is not a map; the file is not a ctmtab table")
+    if minor > MINOR:
+        warnings.warn(f"{where}: table format {major}.{minor} is newer than this reader's {MAJOR}.{MINOR}; "
+                      "unknown fields are ignored", NewerMinorWarning, stacklevel=3)
+    header["_format"] = [major, minor]
+    return header, PREAMBLE.size + head_len
+
+
+def read_body(data: bytes, header: dict, offset: int, max_body: int = MAX_BODY, where: str = "table") -> dict:
+    """Verify the body checksum, then decompress within the declared size."""
+    info = header.get("body")
+    if not isinstance(info, dict) or info.get("codec") != "zstd":
+        raise TableError(f"{where}: the header does not describe a zstd body; the file is not a ctmtab table")
+    raw_size, digest = info.get("raw_size"), info.get("sha256")
+    if not isinstance(raw_size, int) or raw_size < 0 or not isinstance(digest, str):
+        raise TableError(f"{where}: the header's body size or checksum is malformed")
+    if raw_size > max_body:
+        raise SizeLimitError(
+            f"{where}: the body declares {raw_size} bytes decompressed, over the limit of {max_body}; "
+            "pass a larger max_body if you trust this file"
+        )
+    body = data[offset:]
+    if hashlib.sha256(body).hexdigest() != digest:
+        raise ChecksumError(f"{where}: the body checksum does not match; the file is corrupt, fetch it again")
+    try:
+        reader = zstandard.ZstdDecompressor().stream_reader(io.BytesIO(body))
+        raw = reader.read(raw_size + 1)  # never more than declared plus one byte
+    except zstandard.ZstdError as exc:
+        raise TableError(f"{where}: the body does not decompress ({exc}); the file is corrupt") from None
+    if len(raw) != raw_size:
+        raise InconsistentTableError(
+            f"{where}: the body decompresses to {'more' if len(raw) > raw_size else len(raw)} bytes, "
+            f"not the declared {raw_size}; the file is corrupt or hostile"
+        )
+    out = _unpack(raw, "body")
+    if not isinstance(out, dict):
+        raise TableError(f"{where}: the body is not a map; the file is corrupt")
+    return out

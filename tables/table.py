@@ -1,0 +1,393 @@
+"""A loaded table: exact counts by key, CTM values with certified intervals,
+dense views for estimators, verification, merging and export."""
+from __future__ import annotations
+
+import datetime
+import getpass
+import math
+import os
+import socket
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .._version import __version__
+from ..enumerator.space import Space
+from ..errors import InconsistentTableError, MergeError, MissingKeyError, SpaceError, TableError
+from . import format as fmt
+from .arrays import (codes_of, decode_counts, encode_counts, exact_sum, fits_code64, powers,
+                     symbols_of)
+
+FORMALISM = "busy-beaver: entries MOVE(write, direction, next) or HALT(write); every transition is a step"
+MISSING_POLICIES = ("raise", "nan", "fallback")
+MAX_DENSE = 1 << 26  # keys in one dense view: 512 MiB of float64
+SHIPPED = Path(__file__).parent
+
+
+@dataclass
+class Group:
+    """All keys of one shape: sorted base-m codes (or symbol rows) and exact counts."""
+
+    shape: tuple
+    codes: np.ndarray | None   # uint64, sorted, when m^size fits 64 bits
+    symbols: np.ndarray | None  # N x size uint8 otherwise, sorted
+    counts: np.ndarray          # uint64, or object ints when wider
+
+    def __len__(self):
+        return len(self.counts)
+
+    def rows(self, m: int) -> np.ndarray:
+        """Every key as a row of symbols."""
+        if self.symbols is not None:
+            return self.symbols
+        return symbols_of(self.codes, m, math.prod(self.shape))
+
+
+def _int_total(header: dict, name: str) -> int:
+    value = header.get("totals", {}).get(name) if isinstance(header.get("totals"), dict) else None
+    if not isinstance(value, str) or not value.isdigit():
+        raise InconsistentTableError(f"the header total {name!r} is missing or not a whole number")
+    return int(value)
+
+
+class Table:
+    """One coding-theorem table. Build one with Table.from_tally, or load a file with load()."""
+
+    def __init__(self, header: dict, groups: dict, hist_steps: list, hist_len: list, source: str = "table"):
+        self.header = header
+        self.source = source
+        try:
+            space = header["space"]
+            self.space = Space(space["dims"], space["states"], space["symbols"])
+            self.cap = header["cap"]
+            self.mode = header["mode"]
+        except (KeyError, TypeError, SpaceError) as exc:
+            raise InconsistentTableError(f"{source}: the header's space, cap or mode is malformed ({exc})") from None
+        if not isinstance(self.cap, int) or self.cap < 1 or self.mode not in ("exhaustive", "sampled"):
+            raise InconsistentTableError(f"{source}: the header's cap or mode is malformed")
+        self.space_size = _int_total(header, "space_size")
+        self.halting = _int_total(header, "halting")
+        self.non_halting = _int_total(header, "non_halting")
+        self.undecided = _int_total(header, "undecided")
+        self.groups = groups
+        self.hist_steps = hist_steps
+        self.hist_len = hist_len
+        self._dense = {}
+        self._index = {}
+        self.total = sum(exact_sum(g.counts) for g in groups.values())
+
+    # ---- identity and totals
+    @property
+    def blanks(self) -> int:
+        return self.space.symbols
+
+    @property
+    def undecided_runs(self) -> int:
+        """Runs (machine, blank) that reached the cap unproven: the bound on any count's error."""
+        return self.blanks * self.undecided
+
+    @property
+    def distinct(self) -> int:
+        return sum(len(g) for g in self.groups.values())
+
+    @property
+    def shapes(self) -> list:
+        return sorted(self.groups)
+
+    def __repr__(self):
+        return f"<ctmtab Table {self.space.label} cap {self.cap}, {self.distinct} keys>"
+
+    # ---- building and saving
+    @classmethod
+    def from_tally(cls, tally, *, command: str = "", notes: str = "", builder: str | None = None) -> "Table":
+        groups = {}
+        for shape, entries in tally.groups.items():
+            keys = list(entries)
+            counts = np.asarray(list(entries.values()), dtype=object)
+            size = math.prod(shape)
+            rows = np.frombuffer(b"".join(keys), dtype=np.uint8).reshape(len(keys), size)
+            if fits_code64(tally.space.symbols, size):
+                codes = codes_of(rows, tally.space.symbols)
+                order = np.argsort(codes, kind="stable")
+                g = Group(shape, codes[order], None, counts[order])
+            else:
+                order = np.lexsort(rows.T[::-1])
+                g = Group(shape, None, rows[order], counts[order])
+            if max(g.counts, default=0) < 1 << 64:
+                g.counts = g.counts.astype(np.uint64)
+            groups[shape] = g
+        header = {
+            "kind": "ctmtab-table",
+            "space": tally.space.to_dict(),
+            "formalism": FORMALISM,
+            "cap": tally.cap,
+            "blanks": list(range(tally.space.symbols)),
+            "mode": "exhaustive",
+            "totals": {
+                "space_size": str(tally.space.size),
+                "halting": str(tally.halting),
+                "non_halting": str(tally.non_halting),
+                "undecided": str(tally.undecided),
+            },
+            "invariant": "halting + non_halting + undecided = space_size; counts sum to blanks x halting",
+            "symmetries": ["mirror", "blank-swap", "state-relabelling"],
+            "deciders": list(tally.deciders),
+            "stats": {
+                "halting_nodes": tally.halting_nodes,
+                "longest_run": tally.longest_run,
+                "most_nonblank": tally.most_nonblank,
+                "steps_simulated": tally.steps,
+            },
+            "units": {"count": tally.units, "covered": "all"},
+            "generator": {"name": "ctmtab", "version": __version__},
+            "build": {
+                "command": command,
+                "seconds": round(getattr(tally, "seconds", 0.0), 3),
+                "created": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
+                "by": builder if builder is not None else _whoami(),
+            },
+            "notes": notes,
+        }
+        table = cls(header, groups, list(tally.steps_hist), list(tally.length_hist))
+        header["keys"] = table._key_summary()
+        return table
+
+    def _key_summary(self) -> dict:
+        return {"distinct": self.distinct, "groups": [[list(s), len(self.groups[s])] for s in self.shapes]}
+
+    def body(self) -> dict:
+        out = []
+        for shape in self.shapes:
+            g = self.groups[shape]
+            if g.codes is not None:
+                keys = {"kind": "code64", "data": g.codes.astype("<u8").tobytes()}
+            else:
+                keys = {"kind": "symbols", "data": np.ascontiguousarray(g.symbols).tobytes()}
+            out.append({"shape": list(shape), "n": len(g), "keys": keys,
+                        "counts": encode_counts([int(c) for c in g.counts])})
+        return {
+            "groups": out,
+            "hist_steps": dict(encode_counts(self.hist_steps), n=len(self.hist_steps)),
+            "hist_len": dict(encode_counts(self.hist_len), n=len(self.hist_len)),
+        }
+
+    def to_bytes(self) -> bytes:
+        header = {k: v for k, v in self.header.items() if not k.startswith("_") and k != "body"}
+        return fmt.encode(header, self.body())
+
+    def save(self, path) -> None:
+        fmt.write_atomic(path, self.to_bytes())
+
+    # ---- keys
+    def _parse_key(self, key) -> tuple[tuple, np.ndarray]:
+        """A key as (shape, symbols). Accepts "0110", "01/10", "3.11.2", int sequences, numpy arrays."""
+        m = self.space.symbols
+        if isinstance(key, (bytes, bytearray)):
+            arr = np.frombuffer(bytes(key), dtype=np.uint8)
+        elif isinstance(key, str):
+            rows = key.split("/")
+            try:
+                parsed = [[int(x) for x in (r.split(".") if "." in r else r)] for r in rows]
+            except ValueError:
+                raise TableError(f"key {key!r} is not a string of symbols 0..{m - 1}") from None
+            if len(rows) > 1 or self.space.dims == 2:
+                if len({len(r) for r in parsed}) != 1:
+                    raise TableError(f"key {key!r}: rows differ in length")
+                arr = np.array(parsed, dtype=np.int64)
+            else:
+                arr = np.array(parsed[0], dtype=np.int64)
+        else:
+            arr = np.asarray(key)
+        if arr.ndim != self.space.dims or arr.size == 0:
+            raise TableError(f"key {key!r} is not a non-empty {self.space.dims}D array of symbols")
+        if arr.min() < 0 or arr.max() >= m:
+            raise TableError(f"key {key!r} holds a symbol outside 0..{m - 1}")
+        return tuple(arr.shape), arr.reshape(-1).astype(np.uint8)
+
+    def key_text(self, shape: tuple, row: np.ndarray) -> str:
+        sep = "" if self.space.symbols <= 10 else "."
+        cells = [str(int(s)) for s in row]
+        if len(shape) == 1:
+            return sep.join(cells)
+        c = shape[1]
+        return "/".join(sep.join(cells[i: i + c]) for i in range(0, len(cells), c))
+
+    def _position(self, shape: tuple, rows: np.ndarray) -> np.ndarray:
+        """Index of each row in its group, -1 where absent."""
+        g = self.groups.get(shape)
+        if g is None:
+            return np.full(len(rows), -1, dtype=np.int64)
+        if g.codes is not None:
+            codes = codes_of(rows, self.space.symbols)
+            pos = np.searchsorted(g.codes, codes)
+            pos[pos == len(g.codes)] = 0
+            return np.where(g.codes[pos] == codes, pos, -1)
+        index = self._index.get(shape)
+        if index is None:
+            index = self._index[shape] = {r.tobytes(): i for i, r in enumerate(g.symbols)}
+        return np.array([index.get(r.tobytes(), -1) for r in rows], dtype=np.int64)
+
+    def count(self, key) -> int:
+        """Exact count of runs (machine, blank) with this output; 0 if never produced."""
+        shape, row = self._parse_key(key)
+        pos = int(self._position(shape, row[None, :])[0])
+        return 0 if pos < 0 else int(self.groups[shape].counts[pos])
+
+    def probability(self, key) -> float:
+        return self.count(key) / self.total
+
+    def fallback(self) -> float:
+        """CTM for a key never produced under the 'fallback' policy: log2(total) + 1 bits,
+        the value of half the smallest possible count, above every observed value."""
+        return math.log2(self.total) + 1.0
+
+    def _missing(self, key, missing: str) -> float:
+        if missing == "nan":
+            return math.nan
+        if missing == "fallback":
+            return self.fallback()
+        if missing == "raise":
+            raise MissingKeyError(
+                f"key {key!r} was never produced by this table ({self.space.label}, cap {self.cap}); "
+                "use the missing-key policy 'nan' or 'fallback' (--missing in the CLI) to score it anyway"
+            )
+        raise TableError(f"unknown missing-key policy {missing!r}; use one of {', '.join(MISSING_POLICIES)}")
+
+    def ctm(self, key, missing: str = "raise") -> float:
+        """CTM(key) = -log2 D(key) in bits."""
+        c = self.count(key)
+        if c == 0:
+            return self._missing(key, missing)
+        return math.log2(self.total) - math.log2(c)
+
+    def interval(self, key) -> tuple[float, float]:
+        """Certified CTM bounds for an unbounded runtime: the true count lies in
+        [c, c + U] and the true halting total in [H, H + U], U = undecided runs."""
+        c, u, h = self.count(key), self.undecided_runs, self.total
+        low = math.log2(h + u) - math.log2(c + u) if c + u else math.inf
+        high = math.log2(h + u) - math.log2(c) if c else math.inf
+        return low, high
+
+    def lookup(self, keys, missing: str = "nan") -> dict:
+        """Vectorised lookups. keys: a list of keys, or an N x L (1D) / N x R x C (2D)
+        numpy array of one shape. Returns arrays: count (float64), probability, ctm."""
+        if isinstance(keys, np.ndarray) and keys.ndim == self.space.dims + 1:
+            shape = tuple(keys.shape[1:])
+            rows = keys.reshape(len(keys), -1)
+            counts = self._counts_of(shape, rows)
+        else:
+            parsed = [self._parse_key(k) for k in keys]
+            counts = np.array([self._counts_of(s, r[None, :])[0] for s, r in parsed]) if parsed else np.zeros(0)
+        with np.errstate(divide="ignore"):
+            ctm = math.log2(self.total) - np.log2(counts)
+        absent = counts == 0
+        if absent.any():
+            if missing == "raise":
+                self._missing("(one of the keys)", "raise")
+            ctm[absent] = self._missing(None, missing)
+        return {"count": counts, "probability": counts / self.total, "ctm": ctm}
+
+    def _counts_of(self, shape, rows) -> np.ndarray:
+        g = self.groups.get(shape)
+        if g is None:
+            return np.zeros(len(rows))
+        if g.codes is not None and self.space.symbols ** math.prod(shape) <= MAX_DENSE:
+            dense = self._dense_counts(shape)
+            return dense[codes_of(rows, self.space.symbols).astype(np.intp)]
+        pos = self._position(shape, rows)
+        vals = np.asarray(g.counts, dtype=np.float64)
+        return np.where(pos >= 0, vals[np.maximum(pos, 0)], 0.0)
+
+    def _dense_counts(self, shape) -> np.ndarray:
+        key = ("counts", shape)
+        if key not in self._dense:
+            size = self.space.symbols ** math.prod(shape)
+            dense = np.zeros(size, dtype=np.float64)
+            g = self.groups[shape]
+            dense[g.codes.astype(np.intp)] = np.asarray(g.counts, dtype=np.float64)
+            self._dense[key] = dense
+        return self._dense[key]
+
+    def dense(self, shape, missing: str = "nan") -> np.ndarray:
+        """CTM of every key of one shape (an int length in 1D, (rows, cols) in 2D),
+        indexed by base-m code, most significant symbol first (row-major in 2D)."""
+        shape = (shape,) if isinstance(shape, int) else tuple(shape)
+        if len(shape) != self.space.dims:
+            raise TableError(f"shape {shape} does not fit a {self.space.dims}D table")
+        size = self.space.symbols ** math.prod(shape)
+        if size > MAX_DENSE:
+            raise TableError(f"a dense view of shape {shape} would hold {size:,} keys, over {MAX_DENSE:,}; "
+                             "use lookup() instead")
+        if missing not in ("nan", "fallback"):
+            raise TableError("a dense view needs missing='nan' or 'fallback'")
+        key = (missing, shape)
+        if key not in self._dense:
+            counts = self._dense_counts(shape) if shape in self.groups else np.zeros(size)
+            with np.errstate(divide="ignore"):
+                out = math.log2(self.total) - np.log2(counts)
+            out[counts == 0] = self._missing(None, missing)
+            out.setflags(write=False)
+            self._dense[key] = out
+        return self._dense[key]
+
+    # ---- iteration, statistics, export
+    def items(self, shape=None):
+        """(key text, exact count) in shape order, then code order; optionally one shape."""
+        shapes = self.shapes if shape is None else [(shape,) if isinstance(shape, int) else tuple(shape)]
+        m = self.space.symbols
+        for s in shapes:
+            g = self.groups.get(s)
+            if g is None:
+                continue
+            for row, c in zip(g.rows(m), g.counts):
+                yield self.key_text(s, row), int(c)
+
+    def __iter__(self):
+        return self.items()
+
+    def __len__(self):
+        return self.distinct
+
+    def summary(self) -> dict:
+        ctms = [math.log2(self.total) - math.log2(float(c)) for g in self.groups.values() for c in g.counts]
+        return {
+            "space": self.space.to_dict(),
+            "label": self.space.label,
+            "cap": self.cap,
+            "mode": self.mode,
+            "space_size": self.space_size,
+            "halting": self.halting,
+            "non_halting": self.non_halting,
+            "undecided": self.undecided,
+            "undecided_fraction": self.undecided / self.space_size,
+            "distinct_keys": self.distinct,
+            "keys_by_shape": {"x".join(map(str, s)): len(self.groups[s]) for s in self.shapes},
+            "complete_shapes": ["x".join(map(str, s)) for s in self.shapes
+                                if len(self.groups[s]) == self.space.symbols ** math.prod(s)],
+            "ctm_min": min(ctms, default=math.nan),
+            "ctm_max": max(ctms, default=math.nan),
+            "stats": self.header.get("stats", {}),
+            "deciders": self.header.get("deciders", []),
+            "format": self.header.get("_format", [fmt.MAJOR, fmt.MINOR]),
+            "generator": self.header.get("generator", {}),
+            "build": self.header.get("build", {}),
+            "notes": self.header.get("notes", ""),
+        }
+
+    def write_csv(self, out) -> None:
+        out.write("key,count\n")
+        for k, c in self.items():
+            out.write(f"{k},{c}\n")
+
+    def to_json(self) -> dict:
+        meta = {k: v for k, v in self.header.items() if k not in ("body",) and not k.startswith("_")}
+        return {"meta": meta, "counts": dict(self.items()),
+                "hist_steps": self.hist_steps, "hist_len": self.hist_len}
+
+
+def _whoami() -> str:
+    try:
+        return f"{getpass.getuser()}@{socket.gethostname()}"
+    except Exception:  # no user database in some containers
+        return "unknown"

@@ -1,0 +1,63 @@
+"""Everything a collaborator can check in a table beyond its checksums."""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .arrays import codes_of, exact_sum
+from .table import Table
+
+
+def problems(table: Table) -> list[str]:
+    """Every invariant the table breaks, as one line each; empty when it is sound."""
+    out = []
+    t = table
+    covered = t.header.get("units", {}).get("covered") == "all"
+    if covered and t.halting + t.non_halting + t.undecided != t.space_size:
+        out.append(f"halting + non_halting + undecided = {t.halting + t.non_halting + t.undecided}, "
+                   f"not the space size {t.space_size}")
+    if t.space_size != t.space.size:
+        out.append(f"the recorded space size {t.space_size} is not {t.space.label}'s {t.space.size}")
+    if t.total != t.blanks * t.halting:
+        out.append(f"the counts sum to {t.total}, not blanks x halting = {t.blanks * t.halting}")
+    if sum(t.hist_steps) != t.halting:
+        out.append("the halting-step histogram does not sum to the halting total")
+    if sum(t.hist_len) != t.halting:
+        out.append("the output-size histogram does not sum to the halting total")
+    if len(t.hist_steps) > t.cap + 1:
+        out.append(f"the step histogram reaches past the cap {t.cap}")
+    for shape in t.shapes:
+        g = t.groups[shape]
+        if t.space.dims == 1:
+            size = shape[0]
+            if size < len(t.hist_len) and exact_sum(g.counts) != t.blanks * t.hist_len[size]:
+                out.append(f"length {size}: the counts disagree with the output-size histogram")
+        out += [f"shape {shape}: {p}" for p in _closure(t, shape)]
+    return out
+
+
+def _images(table: Table, shape: tuple, rows: np.ndarray):
+    """Every symmetry image of each row that must carry the same count."""
+    m = table.space.symbols
+    if table.space.dims == 1:
+        yield "reversal", shape, rows[:, ::-1]
+    for b in range(1, m):
+        perm = np.arange(m, dtype=np.uint8)
+        perm[0], perm[b] = b, 0
+        yield f"blank swap (0 {b})", shape, perm[rows]
+
+
+def _closure(table: Table, shape: tuple) -> list[str]:
+    g = table.groups[shape]
+    m = table.space.symbols
+    rows = g.rows(m)
+    counts = np.asarray(g.counts, dtype=object)
+    out = []
+    for name, img_shape, img in _images(table, shape, rows):
+        pos = table._position(img_shape, np.ascontiguousarray(img))
+        bad = np.flatnonzero((pos < 0) | (counts[np.maximum(pos, 0)] != counts))
+        if len(bad):
+            out.append(f"{len(bad)} keys differ in count from their {name} image, "
+                       f"e.g. {table.key_text(shape, rows[bad[0]])}")
+    return out

@@ -1,0 +1,64 @@
+"""Speed figures for README.md. Measure with:
+    python3 -m pytest tests/benchmarks --benchmark-enable --benchmark-columns=min,mean,rounds
+In the normal test run each benchmark runs once, as a test."""
+import numpy as np
+import pytest
+
+from ctmtab.enumerator import Space, build, run
+from ctmtab.enumerator.tally import Tally
+from ctmtab.tables import Table, load, loads
+
+CHAMPION_5 = "1RB1LC_1RC1RB_1RD0LE_1LA1LD_1RZ0LA"  # 47,176,870 steps (REFERENCES.md)
+
+
+@pytest.mark.parametrize("n,cap", [(3, 21), (4, 107)])
+def test_exhaustive_build(benchmark, n, cap):
+    tally = benchmark.pedantic(build, args=(Space(1, n, 2), cap), kwargs={"budget_hours": None},
+                               rounds=5 if n == 4 else 20, iterations=1)
+    benchmark.extra_info["steps"] = tally.steps
+    benchmark.extra_info["halting_nodes"] = tally.halting_nodes
+
+
+def test_champion_simulation(benchmark):
+    r = benchmark.pedantic(run, args=(CHAMPION_5, 10**8), rounds=5, iterations=1)
+    assert r.steps == 47_176_870
+    benchmark.extra_info["steps"] = r.steps
+
+
+@pytest.fixture(scope="module")
+def big_table_bytes():
+    """A table of 2^17 = 131,072 keys (every string of length 17); counts invented, for timing only."""
+    rng = np.random.default_rng(3)
+    keys = np.array(np.meshgrid(*[[0, 1]] * 17, indexing="ij")).reshape(17, -1).T.astype(np.uint8)
+    counts = 2 * rng.integers(1, 10**9, size=len(keys))  # even, so halting = total / 2 blanks
+    group = {bytes(k): int(c) for k, c in zip(keys, counts)}
+    halting = sum(group.values()) // 2
+    space = Space(1, 9, 2)
+    tally = Tally(space=space, cap=500, groups={(17,): group}, halting=halting, non_halting=0,
+                  undecided=space.size - halting, halting_nodes=0, steps_hist=[0, halting],
+                  length_hist=[0] * 17 + [halting], longest_run=1, most_nonblank=1, steps=0)
+    return Table.from_tally(tally).to_bytes()
+
+
+def test_load_100k_keys(benchmark, big_table_bytes):
+    t = benchmark(loads, big_table_bytes)
+    assert t.distinct == 2**17
+    benchmark.extra_info["file_bytes"] = len(big_table_bytes)
+
+
+def test_vectorised_lookup(benchmark):
+    t = load("1d-n4-m2-t107")
+    keys = np.random.default_rng(1).integers(0, 2, size=(1_000_000, 8)).astype(np.uint8)
+    t.lookup(keys[:10])  # build the cached dense counts once
+    out = benchmark(t.lookup, keys)
+    assert not np.isnan(out["ctm"]).any()
+    benchmark.extra_info["keys"] = len(keys)
+
+
+def test_dense_view_lookup(benchmark):
+    t = load("1d-n4-m2-t107")
+    dense = t.dense(8)
+    codes = np.random.default_rng(2).integers(0, 256, size=10_000_000)
+    out = benchmark(np.take, dense, codes)
+    assert len(out) == len(codes)
+    benchmark.extra_info["keys"] = len(codes)

@@ -1,0 +1,178 @@
+"""The table file: round trips, determinism, exactness, and every hostile file."""
+import warnings
+
+import msgpack
+import numpy as np
+import pytest
+
+from ctmtab.enumerator import Space
+from ctmtab.errors import (BadMagicError, ChecksumError, InconsistentTableError, SizeLimitError,
+                           TableError, TruncatedError, VersionError)
+from ctmtab.tables import Table, load, loads, problems
+from ctmtab.tables import format as fmt
+from ctmtab.tables.format import NewerMinorWarning
+
+from conftest import exact_table
+from hostile import (hand_tally, sections, small_valid, with_header, with_raw_body, with_version)
+
+
+def test_round_trip_keeps_every_count():
+    tally = exact_table(3, 2, 21)
+    t = loads(Table.from_tally(tally).to_bytes())
+    assert dict(t.items()) == {"".join(map(str, k)): c for g in tally.groups.values() for k, c in g.items()}
+    assert (t.halting, t.non_halting, t.undecided, t.space_size) == (
+        tally.halting, tally.non_halting, tally.undecided, Space(1, 3, 2).size)
+    assert t.hist_steps == tally.steps_hist and t.hist_len == tally.length_hist
+    assert problems(t) == []
+
+
+def test_same_build_gives_byte_identical_body():
+    a = Table.from_tally(exact_table(3, 2, 21), notes="first").to_bytes()
+    b = Table.from_tally(exact_table(3, 2, 21, 2), notes="second, split build").to_bytes()
+    assert a[sections(a)[0]:] == b[sections(b)[0]:]
+
+
+def test_counts_beyond_64_bits_and_keys_beyond_64_bit_codes_stay_exact():
+    big = 3 * 2**70 + 12345
+    long_key = bytes([0, 1] * 40)  # 80 binary symbols: 2^80 codes do not fit 64 bits
+    groups = {(1,): {b"\x00": big, b"\x01": big}, (80,): {long_key: 2, long_key[::-1]: 2}}
+    tally = hand_tally(groups, space=Space(1, 8, 2), cap=200)
+    t = loads(Table.from_tally(tally).to_bytes())
+    assert t.count("0") == big
+    assert t.count(long_key) == 2 and t.count(long_key[::-1]) == 2
+    assert t.groups[(80,)].symbols is not None
+    assert t.total == 2 * big + 4
+
+
+def test_write_is_atomic(tmp_path, monkeypatch):
+    path = tmp_path / "t.ctmt"
+    Table.from_tally(exact_table(2, 2, 6)).save(path)
+    before = path.read_bytes()
+
+    def fail(*a, **k):
+        raise OSError("disk full")
+
+    monkeypatch.setattr(fmt.os, "fsync", fail)
+    with pytest.raises(OSError):
+        Table.from_tally(exact_table(3, 2, 21)).save(path)
+    assert path.read_bytes() == before
+    assert [p.name for p in tmp_path.iterdir()] == ["t.ctmt"]  # no temporary left behind
+
+
+def test_wrong_magic():
+    with pytest.raises(BadMagicError, match="wrong magic"):
+        loads(b"PK\x03\x04" + small_valid()[4:])
+
+
+@pytest.mark.parametrize("where", ["magic", "preamble", "header", "body"])
+def test_truncation_at_every_section(where):
+    data = small_valid()
+    hend, bend = sections(data)
+    cuts = {"magic": [0, 3, 7], "preamble": [8, 20, fmt.PREAMBLE.size - 1],
+            "header": [fmt.PREAMBLE.size, fmt.PREAMBLE.size + 1, hend - 1],
+            "body": [hend, hend + 1, bend - 1]}[where]
+    for cut in cuts:
+        with pytest.raises(TruncatedError, match="ends inside|incomplete"):
+            loads(data[:cut])
+
+
+def test_trailing_bytes_are_refused():
+    with pytest.raises(TableError, match="trail"):
+        loads(small_valid() + b"\x00")
+
+
+def test_flipped_byte_in_header_and_in_body():
+    data = bytearray(small_valid())
+    hend, bend = sections(bytes(data))
+    h = bytearray(data)
+    h[fmt.PREAMBLE.size + 5] ^= 0x40
+    with pytest.raises(ChecksumError, match="header checksum"):
+        loads(bytes(h))
+    b = bytearray(data)
+    b[(hend + bend) // 2] ^= 0x01
+    with pytest.raises(ChecksumError, match="body checksum"):
+        loads(bytes(b))
+
+
+def test_unknown_major_version_is_refused():
+    with pytest.raises(VersionError, match="upgrade ctmtab"):
+        loads(with_version(small_valid(), fmt.MAJOR + 1, 0))
+
+
+def test_newer_minor_version_loads_with_a_warning():
+    data = with_header(with_version(small_valid(), fmt.MAJOR, fmt.MINOR + 3),
+                       lambda h: h.update(future_field={"x": 1}))
+    with pytest.warns(NewerMinorWarning):
+        t = loads(data)
+    assert t.count("0") == exact_table(2, 2, 6).count(b"\x00")
+
+
+def test_oversized_declared_header():
+    data = bytearray(small_valid())
+    fmt.struct.pack_into("<I", data, 12, fmt.MAX_HEADER + 1)
+    with pytest.raises(SizeLimitError, match="header declares"):
+        loads(bytes(data))
+
+
+def test_oversized_declared_body():
+    data = with_header(small_valid(), lambda h: h["body"].update(raw_size=fmt.MAX_BODY + 1))
+    with pytest.raises(SizeLimitError, match="decompressed"):
+        loads(data)
+
+
+def test_decompression_bomb_is_stopped_at_the_declared_size():
+    # 64 MiB of zeros compress to a few KiB
+    bomb = with_raw_body(small_valid(), lambda raw: raw + bytes(64 << 20))
+    # an honest header declares 64 MiB: refused under a 1 MiB limit, before decompressing
+    with pytest.raises(SizeLimitError, match="decompressed"):
+        loads(bomb, max_body=1 << 20)
+    # a header that under-declares: the reader stops one byte past the declared size
+    lying = with_header(bomb, lambda h: h["body"].update(raw_size=1000))
+    with pytest.raises(InconsistentTableError, match="not the declared"):
+        loads(lying)
+
+
+@pytest.mark.parametrize("edit,fragment", [
+    (lambda h: h["totals"].update(halting=str(int(h["totals"]["halting"]) + 1)), "halting total"),
+    (lambda h: h["keys"].update(distinct=h["keys"]["distinct"] + 1), "key summary"),
+    (lambda h: h["totals"].update(undecided="many"), "not a whole number"),
+    (lambda h: h.update(space={"dims": 1, "states": 2, "symbols": 1}), "malformed"),
+    (lambda h: h.update(cap=0), "cap or mode"),
+])
+def test_metadata_that_contradicts_the_body(edit, fragment):
+    with pytest.raises(InconsistentTableError, match=fragment):
+        loads(with_header(small_valid(), edit))
+
+
+def test_unsorted_or_out_of_range_keys_in_the_body():
+    def swap_codes(raw):
+        body = msgpack.unpackb(raw, raw=False)
+        g = body["groups"][1]
+        codes = np.frombuffer(g["keys"]["data"], dtype="<u8")[::-1].copy()
+        g["keys"]["data"] = codes.tobytes()
+        return msgpack.packb(body, use_bin_type=True)
+
+    with pytest.raises(InconsistentTableError, match="not sorted"):
+        loads(with_raw_body(small_valid(), swap_codes))
+
+
+def test_pickle_is_never_used():
+    import importlib
+    from pathlib import Path
+    folder = Path(importlib.import_module("ctmtab.tables.format").__file__).parent
+    for source in folder.glob("*.py"):
+        text = source.read_text()
+        assert "pickle" not in text and "allow_pickle=True" not in text, source
+
+
+def test_shipped_tables_load_by_name_and_verify():
+    from ctmtab.tables import shipped
+    names = shipped()
+    assert {"1d-n1-m2-t1", "1d-n2-m2-t6", "1d-n3-m2-t21", "1d-n4-m2-t107", "1d-n2-m3-t38"} <= set(names)
+    for name in names:
+        t = load(name)
+        assert problems(t) == [], name
+    t = load("1d-n4-m2")
+    assert t.distinct == exact_table(4, 2, 107).distinct()
+    assert dict(t.items()) == {"".join(map(str, k)): c for g in exact_table(4, 2, 107).groups.values()
+                               for k, c in g.items()}
