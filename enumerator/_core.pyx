@@ -36,6 +36,7 @@ cdef extern from "csrc/ctm_core.h" nogil:
         int64_t longest_run, most_nonblank
         uint64_t steps
         uint16_t *cuts
+        ctm_count *cut_weights
         size_t n_cuts
         double est_nodes, est_steps
         uint64_t rng
@@ -134,8 +135,8 @@ def run_unit(int n, int m, int64_t cap, unsigned deciders, prefix=(), int cut_de
             longest_run=int(u.longest_run),
             most_nonblank=int(u.most_nonblank),
             steps=int(u.steps),
-            cuts=[tuple(u.cuts[j * cut_depth + i] for i in range(cut_depth)) for j in range(u.n_cuts)]
-                 if cut_depth >= 0 else [],
+            cuts=[(tuple(u.cuts[j * cut_depth + i] for i in range(cut_depth)), _int(&u.cut_weights[j]))
+                  for j in range(u.n_cuts)] if cut_depth >= 0 else [],
         )
         return out
     finally:
@@ -143,13 +144,20 @@ def run_unit(int n, int m, int64_t cap, unsigned deciders, prefix=(), int cut_de
         free(pre)
 
 
-def probe(int n, int m, int64_t cap, unsigned deciders, uint64_t seed, int walks):
-    """Knuth's estimate of the tree: mean over random root-to-leaf walks of the
-    branch-point count and of the simulated steps. Returns (nodes, steps)."""
+def probe(int n, int m, int64_t cap, unsigned deciders, uint64_t seed, int walks, prefix=()):
+    """Knuth's estimate of the (sub)tree below prefix: mean over random walks to
+    a leaf of the branch-point count and of the simulated steps. Returns (nodes, steps)."""
     cdef ctm_unit u
-    cdef int w, rc = 0
+    cdef int w, i, rc = 0, k = len(prefix)
+    cdef uint16_t pre[64]
+    if k > 64:
+        raise ValueError("prefix too long")
     _setup(&u, n, m, cap, deciders)
-    u.probe_seed = seed | 1
+    u.probe_seed = seed if seed else 1
+    for i in range(k):
+        pre[i] = prefix[i]
+    u.prefix = pre
+    u.prefix_len = k
     try:
         _check(ctm_unit_init(&u))
         with nogil:

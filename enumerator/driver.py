@@ -1,22 +1,25 @@
-"""Exhaustive builds: the work-unit plan over the tree-normal-form search, the
-cost estimate that refuses hopeless requests, and the exact merge."""
+"""Exhaustive builds: the work-unit plan, the cost estimate that refuses
+hopeless requests, the executors, shards, resume, and the exact merge."""
 from __future__ import annotations
 
 import time
 from dataclasses import dataclass
 
-from ..errors import SpaceError, TooLargeError
-from . import _core
+from ..errors import InvariantError, SpaceError, TooLargeError
+from . import _core, executors
 from .space import Space, check_cap
+from .spool import Spool
 from .tally import Partial, Tally
+from .units import Plan, default_depth, make_plan, unit_weight_ok
 
 # Decider names and their bits in the C core. None of them may change a count.
-DECIDERS = {"full-table": 1, "escapee": 2, "cycler": 4}
+DECIDERS = {"full-table": 1, "escapee": 2, "cycler": 4, "translated-cycler": 8}
 ALL_DECIDERS = tuple(DECIDERS)
 
-# Cost model for the estimate, fitted on this project's own builds (see DEVELOPERS.md).
-STEPS_PER_SECOND = 3e8
-NODES_PER_SECOND = 2e7
+# Cost model of the estimate, from the (4,2) and (5,2) builds on this project's machine
+# (README.md, Performance): simulated steps and branch points per second on one core.
+STEPS_PER_SECOND = 2e8
+NODES_PER_SECOND = 1.5e6
 DEFAULT_BUDGET_HOURS = 24.0
 
 
@@ -30,32 +33,14 @@ def decider_bits(names) -> int:
 
 
 @dataclass(frozen=True)
-class Unit:
-    """A subtree of the search: the move choices from the root to its branch
-    point. The 'top' unit holds everything above the split depth."""
-
-    prefix: tuple
-
-    @property
-    def uid(self) -> str:
-        return "top" if not self.prefix else ".".join(map(str, self.prefix))
-
-
-@dataclass(frozen=True)
 class Estimate:
     nodes: float
     steps: float
 
     @property
     def seconds(self) -> float:
+        """Single-core seconds."""
         return self.steps / STEPS_PER_SECOND + self.nodes / NODES_PER_SECOND
-
-
-def estimate(space: Space, cap: int, deciders=ALL_DECIDERS, walks: int = 4000, seed: int = 1) -> Estimate:
-    """Knuth's random-walk estimate of the search size (Knuth, Math. Comp. 29, 1975)."""
-    _prepare(space, cap)
-    nodes, steps = _core.probe(space.states, space.symbols, cap, decider_bits(deciders), seed, walks)
-    return Estimate(nodes, steps)
 
 
 def _prepare(space: Space, cap: int) -> None:
@@ -65,17 +50,25 @@ def _prepare(space: Space, cap: int) -> None:
     space.check_countable()
 
 
-def plan(space: Space, cap: int, depth: int, deciders=ALL_DECIDERS) -> tuple[dict, list[Unit]]:
-    """Run the top of the tree down to `depth` branch points and list the
-    subtrees below it. Deterministic for a given space, cap and depth."""
+def plan(space: Space, cap: int, depth: int | None = None, deciders=ALL_DECIDERS) -> Plan:
+    """The deterministic unit list of a build (top of the tree run exactly)."""
     _prepare(space, cap)
-    top = _core.run_unit(space.states, space.symbols, cap, decider_bits(deciders), (), depth)
-    units = [Unit(tuple(p)) for p in top.pop("cuts")]
-    return top, units
+    depth = default_depth(space) if depth is None else depth
+    return make_plan(space, cap, depth, decider_bits(deciders), tuple(deciders))
 
 
-def run_unit(space: Space, cap: int, unit: Unit, deciders=ALL_DECIDERS) -> dict:
-    return _core.run_unit(space.states, space.symbols, cap, decider_bits(deciders), unit.prefix, -1)
+def estimate(space: Space, cap: int, deciders=ALL_DECIDERS, walks: int = 20_000, seed: int = 1) -> Estimate:
+    """Cost of an exhaustive build: the top of the tree exactly, then Knuth's
+    random-walk estimate (Math. Comp. 29, 1975) inside every unit, which keeps
+    the variance far below that of walks from the root."""
+    p = plan(space, cap, None, deciders)
+    bits = decider_bits(deciders)
+    per_unit = max(4, walks // max(1, len(p.units)))
+    nodes, steps = float(p.top["halting_nodes"]), float(p.top["steps"])
+    for u in p.units:
+        en, es = _core.probe(space.states, space.symbols, cap, bits, seed + u.index, per_unit, u.prefix)
+        nodes, steps = nodes + en, steps + es
+    return Estimate(nodes, steps)
 
 
 def build(
@@ -83,37 +76,88 @@ def build(
     cap: int,
     *,
     deciders=ALL_DECIDERS,
-    split_depth: int = 0,
+    split_depth: int | None = None,
+    workers: int = 1,
+    scheduler: str | None = None,
+    shard: tuple | None = None,
+    spool: str | None = None,
     budget_hours: float | None = DEFAULT_BUDGET_HOURS,
-    on_unit=None,
+    on_progress=None,
 ) -> Tally:
-    """Enumerate the whole space under `cap` and return the exact tally.
+    """Enumerate every machine of the space under cap; return the exact tally.
 
-    split_depth > 0 cuts the tree into work units at that many branch points;
-    the tally is the same for every split. budget_hours refuses, before any
-    work, a request whose estimated cost is larger."""
+    split_depth cuts the tree into work units (default: from the space alone).
+    workers > 1 runs units in a local process pool; scheduler runs them on a Dask
+    cluster. shard=(i, N) builds units i mod N only. spool names a folder where
+    finished units are kept, so a killed build resumes. The tally is the same for
+    every split, executor, shard merge and resume. on_progress(done, total,
+    weight_done, weight_total, steps) is called as units finish."""
     _prepare(space, cap)
+    if shard is not None:
+        i, n = shard
+        if not (isinstance(i, int) and isinstance(n, int) and n >= 1 and 0 <= i < n):
+            raise SpaceError(f"shard {i}/{n} does not exist; use I/N with 0 <= I < N")
+    if workers < 1:
+        raise SpaceError(f"--workers must be 1 or more, got {workers}")
     if budget_hours is not None:
         est = estimate(space, cap, deciders)
-        if est.seconds > budget_hours * 3600:
+        share = 1 if shard is None else shard[1]
+        if est.seconds / share > budget_hours * 3600:
             raise TooLargeError(
                 f"an exhaustive {space.label} build at cap {cap} is estimated at "
-                f"{est.seconds / 3600:,.0f} CPU-hours, over the budget of {budget_hours:g}; "
-                "lower --max-steps, use fewer states or symbols, or raise --budget-hours"
+                f"{est.seconds / share / 3600:,.0f} CPU-hours, over the budget of {budget_hours:g}; "
+                "lower --max-steps, use fewer states or symbols, split it with --shard, or raise --budget-hours"
             )
     t0 = time.perf_counter()
+    p = plan(space, cap, split_depth, deciders)
+    chosen = p.select(shard)
+    store = Spool(spool, p) if spool else None
+    results = store.finished(chosen) if store else {}
+    resumed = len(results)
     part = Partial()
-    if split_depth <= 0:
-        part.add(run_unit(space, cap, Unit(()), deciders))
-        n_units = 1
+    weight_total = sum(p.unit(k).weight for k in chosen)
+    weight_done, done, steps = 0, 0, 0
+
+    def accept(index: int, result: dict) -> None:
+        nonlocal weight_done, done, steps
+        if not unit_weight_ok(result, p.unit(index).weight):
+            raise InvariantError(f"unit {p.unit(index).uid} does not add up to its weight (a bug)")
+        part.add(result)
+        weight_done += p.unit(index).weight
+        done += 1
+        steps += result["steps"]
+        if on_progress:
+            on_progress(done, len(chosen), weight_done, weight_total, steps)
+
+    for index, result in sorted(results.items()):
+        accept(index, result)
+    if 0 in chosen and 0 not in results:
+        if store:
+            store.save(0, p.top)
+        accept(0, p.top)
+    bits = decider_bits(deciders)
+    tasks = [(space.states, space.symbols, cap, bits, k, p.unit(k).prefix)
+             for k in chosen if k != 0 and k not in results]
+    if scheduler:
+        stream = executors.dask_cluster(tasks, scheduler)
+    elif workers > 1 and len(tasks) > 1:
+        stream = executors.local_pool(tasks, workers)
     else:
-        top, units = plan(space, cap, split_depth, deciders)
-        part.add(top)
-        for i, unit in enumerate(units):
-            part.add(run_unit(space, cap, unit, deciders))
-            if on_unit:
-                on_unit(i + 1, len(units))
-        n_units = len(units) + 1
-    tally = Tally.from_partial(space, cap, part, deciders=tuple(deciders), units=n_units)
+        stream = executors.inline(tasks)
+    for index, result in stream:
+        if store:
+            store.save(index, result)
+        accept(index, result)
+    tally = Tally.from_partial(
+        space, cap, part, deciders=tuple(deciders), units=p.count,
+        covered=None if shard is None else chosen, weight=weight_total,
+        plan_ident=p.ident, depth=p.depth, shard=shard,
+    )
     tally.seconds = time.perf_counter() - t0
+    tally.resumed = resumed
     return tally
+
+
+def run_unit(space: Space, cap: int, unit, deciders=ALL_DECIDERS) -> dict:
+    """The raw result of one unit of a plan."""
+    return _core.run_unit(space.states, space.symbols, cap, decider_bits(deciders), unit.prefix, -1)

@@ -82,7 +82,16 @@ class Tally:
     most_nonblank: int
     steps: int
     deciders: tuple = ()
-    units: int = 1
+    units: int = 1               # work units of the plan, the top included
+    covered: list | None = None  # unit indices of a shard; None = all
+    weight: int | None = None    # machines the covered units stand for; None = the space size
+    plan_ident: str = ""
+    depth: int = 0
+    shard: tuple | None = None
+
+    def __post_init__(self):
+        if self.weight is None:
+            self.weight = self.space.size
 
     @property
     def blanks(self) -> int:
@@ -135,11 +144,13 @@ class Tally:
     def check(self) -> None:
         """Raise InvariantError unless every exactness invariant holds."""
         total = self.halting + self.non_halting + self.undecided
-        if total != self.space.size:
+        if total != self.weight:
             raise InvariantError(
-                f"halting + non-halting + undecided = {total}, not the space size "
-                f"{self.space.size}; this is a bug, please report it"
+                f"halting + non-halting + undecided = {total}, not the weight of the covered "
+                f"units {self.weight}; this is a bug, please report it"
             )
+        if self.covered is None and self.weight != self.space.size:
+            raise InvariantError("a complete build does not cover the space size; this is a bug")
         if sum(self.steps_hist) != self.halting or sum(self.length_hist) != self.halting:
             raise InvariantError("a histogram does not sum to the halting weight; this is a bug")
         if self.total_count != self.blanks * self.halting:

@@ -9,14 +9,13 @@ from __future__ import annotations
 
 import hashlib
 import io
-import os
 import struct
-import tempfile
 import warnings
 
 import msgpack
 import zstandard
 
+from ..fsutil import write_atomic  # noqa: F401  (part of this module's API)
 from ..errors import (BadMagicError, ChecksumError, InconsistentTableError, SizeLimitError,
                       TableError, TruncatedError, VersionError)
 
@@ -61,29 +60,6 @@ def encode(header: dict, body: dict) -> bytes:
         raise TableError(f"the header is {len(head)} bytes, over the {MAX_HEADER} limit; shorten the notes")
     pre = PREAMBLE.pack(MAGIC, MAJOR, MINOR, len(head), len(compressed), hashlib.sha256(head).digest())
     return pre + head + compressed
-
-
-def write_atomic(path, data: bytes) -> None:
-    """Write to a temporary file beside the target, fsync, then rename over it:
-    no half-written table ever appears under the final name."""
-    path = os.fspath(path)
-    folder = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(prefix=os.path.basename(path) + ".", suffix=".tmp", dir=folder)
-    try:
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; a table is for sharing
-        with os.fdopen(fd, "wb") as f:
-            f.write(data)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
 
 
 def read_header(data: bytes, where: str = "table") -> tuple[dict, int]:

@@ -1,17 +1,15 @@
-"""Exact merging of tables that cover disjoint parts of one build."""
+"""Exact merging of the shards of one build into one table."""
 from __future__ import annotations
 
-import numpy as np
-
 from ..errors import MergeError
-from .table import Group, Table
+from .table import Table
 
-SAME = ("space", "cap", "mode", "formalism", "blanks")
+SAME = ("space", "cap", "mode", "formalism", "blanks", "deciders")
 
 
-def merge(tables: list[Table]) -> Table:
-    """Sum tables of the same space, cap and mode. Exhaustive tables must cover
-    disjoint units (a complete table covers all of them, so two never merge)."""
+def merge(tables: list[Table], *, command: str = "", builder: str | None = None) -> Table:
+    """Sum shards of one build. Refuses tables of another space, cap or build,
+    a shard given twice, overlapping shards, and an incomplete set."""
     if len(tables) < 2:
         raise MergeError("merge needs at least two tables")
     first = tables[0]
@@ -20,10 +18,49 @@ def merge(tables: list[Table]) -> Table:
             if t.header.get(key) != first.header.get(key):
                 raise MergeError(f"{t.source} differs from {first.source} in {key} "
                                  f"({t.header.get(key)!r} vs {first.header.get(key)!r}); only one build's parts merge")
-    if first.mode == "exhaustive":
-        covers = [t.header.get("units", {}).get("covered") for t in tables]
-        if covers.count("all") and len(tables) > 1:
-            whole = tables[covers.index("all")]
-            raise MergeError(f"{whole.source} already covers every work unit; merging it would count "
-                             "machines twice (merge shards of one build instead)")
-    raise MergeError("merging exhaustive shards needs the shard metadata of a sharded build")
+    if first.mode != "exhaustive":
+        raise MergeError(f"{first.source}: merging {first.mode} tables is not supported yet")
+    units = [t.header.get("units", {}) for t in tables]
+    for t, u in zip(tables, units):
+        if u.get("covered") == "all":
+            raise MergeError(f"{t.source} already covers every work unit; merging it would count machines "
+                             "twice (merge the shards of one build instead)")
+        if u.get("plan") != units[0].get("plan"):
+            raise MergeError(f"{t.source} is a shard of another build (plan {u.get('plan')} vs "
+                             f"{units[0].get('plan')}); rebuild the shards with one command")
+    seen: dict[int, str] = {}
+    for t, u in zip(tables, units):
+        for k in u.get("covered", []):
+            if k in seen:
+                what = "is given twice" if seen[k] == t.source else f"overlaps {seen[k]}"
+                raise MergeError(f"{t.source} {what} (unit {k}); give each shard once")
+            seen[k] = t.source
+    count = units[0].get("count", 0)
+    missing = sorted(set(range(count)) - set(seen))
+    if missing:
+        of = units[0]["shard"][1] if units[0].get("shard") else 0
+        shards = sorted({k % of for k in missing}) if of else []
+        hint = " (shards " + ", ".join(f"{i}/{of}" for i in shards) + ")" if shards else ""
+        raise MergeError(f"{len(missing)} of {count} work units are missing{hint}; add the missing shard files")
+    tallies = [t.to_tally() for t in tables]
+    merged = tallies[0]
+    groups = {}
+    for tl in tallies:
+        for shape, g in tl.groups.items():
+            dst = groups.setdefault(shape, {})
+            for k, c in g.items():
+                dst[k] = dst.get(k, 0) + c
+    merged.groups = {s: dict(sorted(groups[s].items())) for s in sorted(groups)}
+    for name in ("halting", "non_halting", "undecided", "halting_nodes", "steps"):
+        setattr(merged, name, sum(getattr(tl, name) for tl in tallies))
+    for name in ("longest_run", "most_nonblank"):
+        setattr(merged, name, max(getattr(tl, name) for tl in tallies))
+    for name in ("steps_hist", "length_hist"):
+        width = max(len(getattr(tl, name)) for tl in tallies)
+        setattr(merged, name, [sum(getattr(tl, name)[i] for tl in tallies if i < len(getattr(tl, name)))
+                               for i in range(width)])
+    merged.covered, merged.shard, merged.weight = None, None, merged.space.size
+    merged.seconds = sum(float(t.header.get("build", {}).get("seconds", 0)) for t in tables)
+    merged.check()
+    notes = "merged from " + ", ".join(str(t.source) for t in tables)
+    return Table.from_tally(merged, command=command, notes=notes, builder=builder)

@@ -139,7 +139,14 @@ class Table:
                 "most_nonblank": tally.most_nonblank,
                 "steps_simulated": tally.steps,
             },
-            "units": {"count": tally.units, "covered": "all"},
+            "units": {
+                "count": tally.units,
+                "depth": tally.depth,
+                "plan": tally.plan_ident,
+                "covered": "all" if tally.covered is None else list(tally.covered),
+                "weight": str(tally.weight),
+                "shard": None if tally.shard is None else list(tally.shard),
+            },
             "generator": {"name": "ctmtab", "version": __version__},
             "build": {
                 "command": command,
@@ -152,6 +159,28 @@ class Table:
         table = cls(header, groups, list(tally.steps_hist), list(tally.length_hist))
         header["keys"] = table._key_summary()
         return table
+
+    def to_tally(self):
+        """The exact tally behind this table (for merging)."""
+        from ..enumerator.tally import Tally
+
+        m = self.space.symbols
+        groups = {s: {row.tobytes(): int(c) for row, c in zip(self.groups[s].rows(m), self.groups[s].counts)}
+                  for s in self.shapes}
+        units, stats = self.header.get("units", {}), self.header.get("stats", {})
+        covered = units.get("covered")
+        shard = units.get("shard")
+        return Tally(
+            space=self.space, cap=self.cap, groups=groups, halting=self.halting,
+            non_halting=self.non_halting, undecided=self.undecided,
+            halting_nodes=stats.get("halting_nodes", 0), steps_hist=list(self.hist_steps),
+            length_hist=list(self.hist_len), longest_run=stats.get("longest_run", 0),
+            most_nonblank=stats.get("most_nonblank", 0), steps=stats.get("steps_simulated", 0),
+            deciders=tuple(self.header.get("deciders", [])), units=units.get("count", 1),
+            covered=None if covered == "all" else list(covered),
+            weight=int(units.get("weight", self.space_size)), plan_ident=units.get("plan", ""),
+            depth=units.get("depth", 0), shard=None if shard is None else tuple(shard),
+        )
 
     def _key_summary(self) -> dict:
         return {"distinct": self.distinct, "groups": [[list(s), len(self.groups[s])] for s in self.shapes]}

@@ -71,7 +71,7 @@ def test_run_the_five_state_champion():
     (("build", "--states", 0), "at least 1 state"),
     (("build", "--symbols", 1), "at least 2 symbols"),
     (("build", "--max-steps", 0), "at least 1"),
-    (("build", "--states", 6, "--max-steps", 1000), "CPU-hours"),
+    (("build", "--states", 7, "--max-steps", 1000), "CPU-hours"),
     (("build", "--states", 6, "--symbols", 6, "--max-steps", 10), "128-bit"),
     (("build", "--states", 5, "--symbols", 3), "give --max-steps"),
     (("build", "-o", "/nonexistent/x.ctmt"), "folder does not exist"),

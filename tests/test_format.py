@@ -52,7 +52,8 @@ def test_write_is_atomic(tmp_path, monkeypatch):
     def fail(*a, **k):
         raise OSError("disk full")
 
-    monkeypatch.setattr(fmt.os, "fsync", fail)
+    import ctmtab.fsutil
+    monkeypatch.setattr(ctmtab.fsutil.os, "fsync", fail)
     with pytest.raises(OSError):
         Table.from_tally(exact_table(3, 2, 21)).save(path)
     assert path.read_bytes() == before

@@ -43,9 +43,17 @@ def test_space_too_large_for_exact_counts_is_refused():
 
 
 def test_hopeless_exhaustive_request_is_refused_before_work():
-    # (6,2) holds about 5.8e16 machines; the estimate puts it far over a day
+    # (7,2) at cap 1000: the estimate is about 1,500 CPU-hours, far over the 24-hour default
     with pytest.raises(TooLargeError, match="CPU-hours"):
-        build(Space(1, 6, 2), 1000)
+        build(Space(1, 7, 2), 1000)
+
+
+def test_estimate_tracks_the_real_search():
+    # the (4,2) search has 249,693 halting nodes (arXiv:2509.12337, verified); the stratified
+    # random-walk estimate must land within a factor 2, or the refusals above mean little
+    from ctmtab.enumerator import estimate
+    e = estimate(Space(1, 4, 2), 107)
+    assert 249_693 / 2 < e.nodes < 249_693 * 2
 
 
 @pytest.mark.parametrize("n,m,cap", [(1, 2, 1), (2, 2, 6), (3, 2, 21), (4, 2, 107), (2, 3, 38), (3, 2, 5)])

@@ -19,6 +19,13 @@ from ..errors import CtmtabError
 KNOWN_CAPS = {(1, 2): 1, (2, 2): 6, (3, 2): 21, (4, 2): 107, (2, 3): 38}
 
 
+class _Parser(argparse.ArgumentParser):
+    """Usage errors in one line, like every other error."""
+
+    def error(self, message):
+        self.exit(2, f"{self.prog}: {message}; see {self.prog} --help\n")
+
+
 def _space_args(p):
     p.add_argument("--dims", type=int, default=1, choices=(1, 2), help="1 (tape) or 2 (grid); default 1")
     p.add_argument("--states", type=int, default=3, help="working states n >= 1; default 3")
@@ -28,7 +35,7 @@ def _space_args(p):
 
 
 def _parser() -> argparse.ArgumentParser:
-    top = argparse.ArgumentParser(prog="ctmtab", description="Exact coding-theorem tables from every small Turing machine.")
+    top = _Parser(prog="ctmtab", description="Exact coding-theorem tables from every small Turing machine.")
     top.add_argument("--version", action="version", version=f"ctmtab {__version__}")
     sub = top.add_subparsers(dest="command", metavar="COMMAND", required=True)
 
@@ -36,8 +43,12 @@ def _parser() -> argparse.ArgumentParser:
     _space_args(p)
     p.add_argument("-o", "--output", help="table file to write; default ctm-<space>-t<cap>.ctmt")
     p.add_argument("--deciders", default="all",
-                   help="comma list of non-halting proofs: full-table, escapee, cycler; 'all' or 'none'")
-    p.add_argument("--split-depth", type=int, default=0, help="cut the search into work units this deep")
+                   help="comma list of non-halting proofs: full-table, escapee, cycler, translated-cycler; 'all' or 'none'")
+    p.add_argument("--workers", type=int, default=None, help="local processes; default every core")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="run the units on a Dask cluster (tcp://host:8786)")
+    p.add_argument("--shard", metavar="I/N", help="build only units I mod N into a shard file (merge them later)")
+    p.add_argument("--split-depth", type=int, default=None,
+                   help="branch points above the work-unit cut; default from the space")
     p.add_argument("--budget-hours", type=float, default=24.0,
                    help="refuse builds estimated above this many CPU-hours; default 24")
     p.add_argument("--notes", default="", help="free text stored in the header")
@@ -80,9 +91,21 @@ def _emit(obj, as_json: bool, text: str) -> None:
     print(json.dumps(obj, indent=2, default=str) if as_json else text)
 
 
+def _shard(text):
+    if text is None:
+        return None
+    try:
+        i, n = (int(x) for x in text.split("/"))
+    except ValueError:
+        raise CtmtabError(f"--shard {text!r} is not I/N, e.g. --shard 0/4") from None
+    return i, n
+
+
 def cmd_build(a) -> int:
     from ..enumerator import ALL_DECIDERS, Space, build
+    from ..enumerator.executors import cores
     from ..tables import Table
+    from .progress import Bar
 
     space = Space(a.dims, a.states, a.symbols)
     cap = a.max_steps
@@ -92,17 +115,33 @@ def cmd_build(a) -> int:
             raise CtmtabError(f"no busy beaver value is known for {space.label}; give --max-steps")
     deciders = {"all": ALL_DECIDERS, "none": ()}.get(a.deciders) or tuple(
         d.strip() for d in a.deciders.split(",") if d.strip())
-    output = a.output or f"ctm-{space.dims}d-n{space.states}-m{space.symbols}-t{cap}.ctmt"
+    shard = _shard(a.shard)
+    stem = f"ctm-{space.dims}d-n{space.states}-m{space.symbols}-t{cap}"
+    output = a.output or (stem + (f"-shard{shard[0]}of{shard[1]}" if shard else "") + ".ctmt")
     if not Path(output).resolve().parent.is_dir():
         raise CtmtabError(f"cannot write {output}: its folder does not exist")
+    workers = a.workers if a.workers is not None else cores()
+    spool = output + ".parts"
     t0 = time.perf_counter()
-    tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, budget_hours=a.budget_hours)
+    bar = Bar(f"{space.label} cap {cap}", enabled=False if a.quiet else None)
+    try:
+        tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, workers=workers,
+                      scheduler=a.scheduler, shard=shard, spool=spool, budget_hours=a.budget_hours,
+                      on_progress=bar)
+    finally:
+        bar.close()
     command = "ctmtab " + " ".join(shlex.quote(x) for x in sys.argv[1:])
     table = Table.from_tally(tally, command=command, notes=a.notes, builder=a.builder)
+    table.header["build"]["resumed_units"] = tally.resumed
+    table.header["build"]["workers"] = "dask" if a.scheduler else workers
     table.save(output)
+    from ..enumerator.spool import Spool
+    Spool.discard(spool)
     if not a.quiet:
-        print(f"{space.label} cap {cap}: {space.size:,} machines, {tally.distinct():,} outputs, "
-              f"undecided {tally.undecided / space.size:.2%}, {time.perf_counter() - t0:.2f} s -> {output}",
+        part = f" shard {shard[0]}/{shard[1]}," if shard else ""
+        again = f", {tally.resumed} units resumed from {spool}" if tally.resumed else ""
+        print(f"{space.label} cap {cap}:{part} {tally.weight:,} machines, {tally.distinct():,} outputs, "
+              f"undecided {tally.undecided / tally.weight:.3%}, {time.perf_counter() - t0:.2f} s{again} -> {output}",
               file=sys.stderr)
     return 0
 
@@ -176,7 +215,8 @@ def cmd_verify(a) -> int:
 def cmd_merge(a) -> int:
     from ..tables import load, merge
 
-    merge([load(p) for p in a.tables]).save(a.output)
+    command = "ctmtab " + " ".join(shlex.quote(x) for x in sys.argv[1:])
+    merge([load(p) for p in a.tables], command=command).save(a.output)
     return 0
 
 

@@ -133,7 +133,7 @@ int ctm_unit_init(ctm_unit *u) {
         if (u->pow_opts[k - 1] > limit / opts) return CTM_EOVERFLOW;
         u->pow_opts[k] = u->pow_opts[k - 1] * opts;
     }
-    u->tape_len = 2 * u->cap + 3;
+    u->tape_len = 2 * u->cap + 3 + 2 * CTM_REC_WINDOW; /* padding for record windows */
     u->halting = u->non_halting = u->undecided = 0;
     u->halting_nodes = 0;
     u->longest_run = 0;
@@ -141,8 +141,13 @@ int ctm_unit_init(ctm_unit *u) {
     u->steps = 0;
     u->n_cuts = u->cuts_cap = 0;
     u->cuts = NULL;
+    u->cut_weights = NULL;
     u->est_nodes = u->est_steps = 0.0;
-    u->rng = u->probe_seed;
+    /* splitmix64 of the seed: nearby seeds give unrelated streams */
+    uint64_t z = u->probe_seed + 0x9e3779b97f4a7c15ull;
+    z = (z ^ (z >> 30)) * 0xbf58476d1ce4e5b9ull;
+    z = (z ^ (z >> 27)) * 0x94d049bb133111ebull;
+    u->rng = (z ^ (z >> 31)) | 1u;
     u->probe_factor = 1.0;
     u->tape = calloc((size_t)u->tape_len, 1);
     u->snap = calloc((size_t)u->tape_len, 1);
@@ -160,10 +165,11 @@ int ctm_unit_init(ctm_unit *u) {
 
 void ctm_unit_free(ctm_unit *u) {
     free(u->tape); free(u->snap); free(u->scratch); free(u->saves);
-    free(u->hist_steps); free(u->hist_len); free(u->cuts);
+    free(u->hist_steps); free(u->hist_len); free(u->cuts); free(u->cut_weights);
     u->tape = u->snap = u->scratch = u->saves = NULL;
     u->hist_steps = u->hist_len = NULL;
     u->cuts = NULL;
+    u->cut_weights = NULL;
     if (u->raw.hashes) ctm_map_free(&u->raw);
 }
 
@@ -197,6 +203,45 @@ static int same_tape(const ctm_unit *u, int64_t lo, int64_t hi, int64_t slo, int
     return memcmp(u->tape + slo, u->snap + slo, (size_t)(shi - slo + 1)) == 0;
 }
 
+/* Translated cycler. At a new record cell p (side 0: rightmost, side 1:
+ * leftmost, everything beyond it blank) in state q, compare with an earlier
+ * record j in state q at p_j, d = |p - p_j|. Let r be the farthest the head
+ * went back (away from the edge) since record j. If the cells from r to p_j
+ * then equal the cells from r + d to p now (shifted towards the edge), the run
+ * from j to now repeats forever, each time shifted by d: it never halts.
+ * `reach` is the farthest-back position since the previous record. */
+static int translated(ctm_unit *u, int side, int state, int64_t pos, int64_t reach) {
+    enum { W = CTM_REC_WINDOW };
+    const int k = u->rec_n[side] % CTM_REC_RING;
+    const int have = u->rec_n[side] < CTM_REC_RING ? u->rec_n[side] : CTM_REC_RING;
+    int found = 0;
+    int64_t back = reach; /* farthest back since record j, over j = latest .. oldest */
+    for (int i = 1; i <= have && !found; i++) {
+        int j = (k - i + CTM_REC_RING) % CTM_REC_RING;
+        int64_t pj = u->rec_pos[side][j];
+        if (u->rec_state[side][j] == state) {
+            /* rec_cells holds the W cells ending at p_j (side 0) or starting at p_j (side 1) */
+            const uint8_t *old = u->rec_cells[side][j];
+            if (side == 0) {
+                int64_t span = pj - back + 1; /* cells back..p_j, compared with back+d..p */
+                found = span <= W && memcmp(u->tape + pos - span + 1, old + W - span, (size_t)span) == 0;
+            } else {
+                int64_t span = back - pj + 1;
+                found = span <= W && memcmp(u->tape + pos, old, (size_t)span) == 0;
+            }
+        }
+        int64_t rb = u->rec_reach[side][j];
+        if (side == 0 ? rb < back : rb > back) back = rb;
+    }
+    /* log this record; the tape has W cells of padding, so both windows are in bounds */
+    u->rec_state[side][k] = state;
+    u->rec_pos[side][k] = pos;
+    u->rec_reach[side][k] = reach;
+    memcpy(u->rec_cells[side][k], u->tape + (side == 0 ? pos - W + 1 : pos), W);
+    u->rec_n[side]++;
+    return found;
+}
+
 typedef struct {
     int state;
     int64_t head, lo, hi, step;
@@ -214,9 +259,13 @@ static int branch(ctm_unit *u, config c) {
             uint16_t *p = realloc(u->cuts, ncap * (size_t)(d ? d : 1) * sizeof *p);
             if (!p) return CTM_ENOMEM;
             u->cuts = p;
+            ctm_count *w = realloc(u->cut_weights, ncap * sizeof *w);
+            if (!w) return CTM_ENOMEM;
+            u->cut_weights = w;
             u->cuts_cap = ncap;
         }
         memcpy(u->cuts + u->n_cuts * (size_t)d, u->path, (size_t)d * sizeof *u->path);
+        u->cut_weights[u->n_cuts] = c.mult * u->pow_opts[u->nent - d] * (u->mirror_flag ? 2 : 1);
         u->n_cuts++;
         u->touch_lo = c.lo;
         u->touch_hi = c.hi;
@@ -313,14 +362,17 @@ static int segment(ctm_unit *u, config c) {
     int outcome; /* 0 undecided, 1 proven non-halting */
     int state = c.state;
     int64_t head = c.head, lo = c.lo, hi = c.hi, step = c.step;
-    int snap_state = state;
-    int64_t snap_head = head, snap_lo = lo, snap_hi = hi, power = 1, lam = 0;
+    /* Brent's cycle detection; the first snapshot waits 8 steps, since most
+     * segments reach a branch point sooner and would only pay for the copy */
+    int snap_state = -1;
+    int64_t snap_head = 0, snap_lo = lo, snap_hi = hi, power = 8, lam = 0;
 
     if ((dec & CTM_DEC_FULL) && u->ndef == u->nent) {
         outcome = 1;
         goto done;
     }
-    if (dec & CTM_DEC_CYCLE) memcpy(u->snap + lo, u->tape + lo, (size_t)(hi - lo + 1));
+    int64_t back_r = head, back_l = head; /* farthest back from each edge since its last record */
+    u->rec_n[0] = u->rec_n[1] = 0;
     for (;;) {
         if (step >= cap) {
             outcome = 0;
@@ -329,7 +381,8 @@ static int segment(ctm_unit *u, config c) {
         int e = state * m + u->tape[head];
         if (!u->def[e]) {
             u->steps += (uint64_t)(step - start);
-            if (u->probe_seed) u->est_steps += u->probe_factor * (double)(step - start);
+            if (u->probe_seed && u->ndef >= u->prefix_len)
+                u->est_steps += u->probe_factor * (double)(step - start);
             config b = {state, head, lo, hi, step, c.mult};
             return branch(u, b);
         }
@@ -340,10 +393,20 @@ static int segment(ctm_unit *u, config c) {
         if (head < lo) {
             lo = head;
             if ((dec & CTM_DEC_ESCAPE) && escapes(u, state, -1)) { outcome = 1; break; }
+            if (dec & CTM_DEC_SHIFT) {
+                if (translated(u, 1, state, head, back_l)) { outcome = 1; break; }
+                back_l = head;
+            }
         } else if (head > hi) {
             hi = head;
             if ((dec & CTM_DEC_ESCAPE) && escapes(u, state, 1)) { outcome = 1; break; }
+            if (dec & CTM_DEC_SHIFT) {
+                if (translated(u, 0, state, head, back_r)) { outcome = 1; break; }
+                back_r = head;
+            }
         }
+        if (head < back_r) back_r = head;
+        if (head > back_l) back_l = head;
         if (dec & CTM_DEC_CYCLE) {
             if (state == snap_state && head == snap_head &&
                 same_tape(u, lo, hi, snap_lo, snap_hi)) {
@@ -366,7 +429,7 @@ done:
     u->touch_lo = lo;
     u->touch_hi = hi;
     if (u->probe_seed) {
-        u->est_steps += u->probe_factor * (double)(step - start);
+        if (u->ndef >= u->prefix_len) u->est_steps += u->probe_factor * (double)(step - start);
         return CTM_OK;
     }
     if (u->prefix_len > u->ndef) return CTM_EINVAL; /* the prefix names no branch point */
@@ -376,7 +439,8 @@ done:
 }
 
 int ctm_unit_run(ctm_unit *u) {
-    config root = {0, u->cap + 1, u->cap + 1, u->cap + 1, 0, 1};
+    const int64_t origin = u->cap + 1 + CTM_REC_WINDOW;
+    config root = {0, origin, origin, origin, 0, 1};
     u->mirror_flag = 0;
     return segment(u, root);
 }

@@ -21,6 +21,10 @@
 #define CTM_DEC_FULL 1u    /* fully defined table, no HALT entry */
 #define CTM_DEC_ESCAPE 2u  /* escapee on fresh blank tape */
 #define CTM_DEC_CYCLE 4u   /* repeated configuration */
+#define CTM_DEC_SHIFT 8u   /* translated cycler: a record configuration repeats shifted */
+
+#define CTM_REC_RING 32    /* records kept per side for the translated-cycler check */
+#define CTM_REC_WINDOW 64  /* cells kept behind each record */
 
 typedef unsigned __int128 ctm_count;
 
@@ -62,6 +66,7 @@ typedef struct {
     int64_t most_nonblank;
     uint64_t steps;      /* simulated steps, for speed figures */
     uint16_t *cuts;      /* cut_depth paths, cut_depth entries each */
+    ctm_count *cut_weights; /* machines each listed unit stands for */
     size_t n_cuts, cuts_cap;
     double est_nodes, est_steps; /* probe mode */
 
@@ -78,6 +83,12 @@ typedef struct {
     uint64_t rng;
     double probe_factor;
     int mirror_flag;            /* 1 under the first move R: count mirror images too */
+    /* translated-cycler records, per side (0 right, 1 left): a ring of the latest */
+    int rec_n[2];
+    int rec_state[2][CTM_REC_RING];
+    int64_t rec_pos[2][CTM_REC_RING];
+    int64_t rec_reach[2][CTM_REC_RING]; /* farthest back the head went since the record before */
+    uint8_t rec_cells[2][CTM_REC_RING][CTM_REC_WINDOW];
     int64_t touch_lo, touch_hi; /* dirty tape span a finished subtree leaves */
 } ctm_unit;
 

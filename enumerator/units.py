@@ -1,0 +1,114 @@
+"""Work units: a deterministic cut of the search tree, and the exact
+(de)serialisation of one unit's result for the spool."""
+from __future__ import annotations
+
+import hashlib
+import json
+from dataclasses import dataclass
+
+import msgpack
+
+from ..errors import SpaceError
+from . import _core
+from .space import Space
+
+# Index 0 is the top of the tree (everything above the cut); 1..N are subtrees.
+TOP = 0
+
+
+def default_depth(space: Space) -> int:
+    """Cut depth used when none is given: a function of the space only, so that
+    every worker count, shard split and resume sees the same units."""
+    return max(0, min(4, space.entries - 1))
+
+
+@dataclass(frozen=True)
+class Unit:
+    index: int
+    prefix: tuple
+    weight: int  # machines the subtree stands for
+
+    @property
+    def uid(self) -> str:
+        return "top" if self.index == TOP else ".".join(map(str, self.prefix))
+
+
+@dataclass
+class Plan:
+    space: Space
+    cap: int
+    deciders: tuple
+    depth: int
+    top: dict
+    units: list  # Unit 1..N
+
+    @property
+    def count(self) -> int:
+        """Units including the top."""
+        return len(self.units) + 1
+
+    @property
+    def ident(self) -> str:
+        """Fingerprint of the build: space, cap, deciders and the unit list."""
+        h = hashlib.sha256(json.dumps([self.space.to_dict(), self.cap, sorted(self.deciders), self.depth],
+                                      sort_keys=True).encode())
+        for u in self.units:
+            h.update(repr(u.prefix).encode())
+        return h.hexdigest()[:24]
+
+    def unit(self, index: int) -> Unit:
+        if index == TOP:
+            return Unit(TOP, (), self.space.size - sum(u.weight for u in self.units))
+        return self.units[index - 1]
+
+    def select(self, shard: tuple | None) -> list[int]:
+        """Unit indices of shard (i, N): those congruent to i mod N; all without a shard."""
+        if shard is None:
+            return list(range(self.count))
+        i, n = shard
+        return [k for k in range(self.count) if k % n == i]
+
+
+def make_plan(space: Space, cap: int, depth: int, bits: int, deciders: tuple) -> Plan:
+    if depth < 0 or depth >= max(1, space.entries):
+        raise SpaceError(f"a split depth of {depth} does not fit {space.label}; use 0 to {max(0, space.entries - 1)}")
+    top = _core.run_unit(space.states, space.symbols, cap, bits, (), depth if depth > 0 else -1)
+    cuts = top.pop("cuts")
+    units = [Unit(i + 1, tuple(p), w) for i, (p, w) in enumerate(cuts)]
+    return Plan(space, cap, tuple(deciders), depth, top, units)
+
+
+def unit_weight_ok(result: dict, weight: int) -> bool:
+    return result["halting"] + result["non_halting"] + result["undecided"] == weight
+
+
+# ---- spool records: exact, no pickle. Integers too wide for msgpack travel as decimal strings.
+
+def _enc(v: int):
+    return v if -(1 << 63) <= v < (1 << 63) else str(v)
+
+
+def _dec(v) -> int:
+    if isinstance(v, bool) or not isinstance(v, (int, str)):
+        raise ValueError("not an integer")
+    return int(v)
+
+
+INT_FIELDS = ("halting", "non_halting", "undecided", "halting_nodes", "longest_run", "most_nonblank", "steps")
+
+
+def dump_result(result: dict) -> bytes:
+    rec = {k: _enc(result[k]) for k in INT_FIELDS}
+    rec["raw"] = [[k, _enc(v)] for k, v in sorted(result["raw"].items())]
+    rec["hist_steps"] = [_enc(v) for v in result["hist_steps"]]
+    rec["hist_len"] = [_enc(v) for v in result["hist_len"]]
+    return msgpack.packb(rec, use_bin_type=True)
+
+
+def load_result(data: bytes) -> dict:
+    rec = msgpack.unpackb(data, raw=False, strict_map_key=True)
+    out = {k: _dec(rec[k]) for k in INT_FIELDS}
+    out["raw"] = {bytes(k): _dec(v) for k, v in rec["raw"]}
+    out["hist_steps"] = [_dec(v) for v in rec["hist_steps"]]
+    out["hist_len"] = [_dec(v) for v in rec["hist_len"]]
+    return out
