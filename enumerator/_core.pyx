@@ -12,6 +12,7 @@ cdef extern from "csrc/ctm_core.h" nogil:
     int CTM_OK, CTM_ENOMEM, CTM_EINVAL, CTM_EOVERFLOW
     int CTM_NX_HALT, CTM_NX_UNDEF
     int CTM_MAX_ENTRIES
+    int CTM_MAX_CAP_2D
     const char *ctm_strerror(int code)
     ctypedef struct ctm_map:
         uint64_t *hashes
@@ -21,6 +22,7 @@ cdef extern from "csrc/ctm_core.h" nogil:
         size_t cap, size
         uint8_t *arena
     ctypedef struct ctm_unit:
+        int dims
         int n, m
         int64_t cap
         unsigned deciders
@@ -62,6 +64,7 @@ cdef extern from "csrc/ctm_count.h" nogil:
 
 API_VERSION = CTM_API_VERSION
 MAX_ENTRIES = CTM_MAX_ENTRIES
+MAX_CAP_2D = CTM_MAX_CAP_2D
 NX_HALT = CTM_NX_HALT
 NX_UNDEF = CTM_NX_UNDEF
 
@@ -84,8 +87,9 @@ cdef object _int(const ctm_count *x):
     return (int(ctm_count_hi(x)) << 64) | int(ctm_count_lo(x))
 
 
-cdef _setup(ctm_unit *u, int n, int m, int64_t cap, unsigned deciders):
+cdef _setup(ctm_unit *u, int dims, int n, int m, int64_t cap, unsigned deciders):
     memset(u, 0, sizeof(ctm_unit))
+    u.dims = dims
     u.n = n
     u.m = m
     u.cap = cap
@@ -93,19 +97,19 @@ cdef _setup(ctm_unit *u, int n, int m, int64_t cap, unsigned deciders):
     u.cut_depth = -1
 
 
-def run_unit(int n, int m, int64_t cap, unsigned deciders, prefix=(), int cut_depth=-1):
-    """Enumerate one work unit of the 1D space (n, m) under cap.
+def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), int cut_depth=-1):
+    """Enumerate one work unit of the space (dims, n, m) under cap.
 
     prefix: the move-option indices to follow through the first len(prefix)
     branch points (the unit's subtree); cut_depth >= 0 lists, instead of
     exploring, the branch points of that depth (they become their own units).
-    Returns a dict of exact Python ints; raw outputs carry a leading flag byte
-    (1 = mirror image to be added)."""
+    Returns a dict of exact Python ints; raw outputs carry a leading byte, the
+    symmetry class whose images are still to be added (see tally.py)."""
     cdef ctm_unit u
     cdef uint16_t *pre = NULL
     cdef int rc, i, k = len(prefix)
     cdef size_t j
-    _setup(&u, n, m, cap, deciders)
+    _setup(&u, dims, n, m, cap, deciders)
     u.cut_depth = cut_depth
     if k:
         pre = <uint16_t *>malloc(k * sizeof(uint16_t))
@@ -144,7 +148,7 @@ def run_unit(int n, int m, int64_t cap, unsigned deciders, prefix=(), int cut_de
         free(pre)
 
 
-def probe(int n, int m, int64_t cap, unsigned deciders, uint64_t seed, int walks, prefix=()):
+def probe(int dims, int n, int m, int64_t cap, unsigned deciders, uint64_t seed, int walks, prefix=()):
     """Knuth's estimate of the (sub)tree below prefix: mean over random walks to
     a leaf of the branch-point count and of the simulated steps. Returns (nodes, steps)."""
     cdef ctm_unit u
@@ -152,7 +156,7 @@ def probe(int n, int m, int64_t cap, unsigned deciders, uint64_t seed, int walks
     cdef uint16_t pre[64]
     if k > 64:
         raise ValueError("prefix too long")
-    _setup(&u, n, m, cap, deciders)
+    _setup(&u, dims, n, m, cap, deciders)
     u.probe_seed = seed if seed else 1
     for i in range(k):
         pre[i] = prefix[i]

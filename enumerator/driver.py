@@ -45,8 +45,9 @@ class Estimate:
 
 def _prepare(space: Space, cap: int) -> None:
     check_cap(cap)
-    if space.dims != 1:
-        raise SpaceError(f"{space.label}: exhaustive 2D builds are not available yet; use --dims 1")
+    if space.dims == 2 and cap > _core.MAX_CAP_2D:
+        raise SpaceError(f"a 2D cap of {cap} is over the limit of {_core.MAX_CAP_2D} (the grid is "
+                         "(2 cap + 3)^2 bytes per worker); use a smaller --max-steps")
     space.check_countable()
 
 
@@ -66,7 +67,8 @@ def estimate(space: Space, cap: int, deciders=ALL_DECIDERS, walks: int = 20_000,
     per_unit = max(4, walks // max(1, len(p.units)))
     nodes, steps = float(p.top["halting_nodes"]), float(p.top["steps"])
     for u in p.units:
-        en, es = _core.probe(space.states, space.symbols, cap, bits, seed + u.index, per_unit, u.prefix)
+        en, es = _core.probe(space.dims, space.states, space.symbols, cap, bits, seed + u.index, per_unit,
+                             u.prefix)
         nodes, steps = nodes + en, steps + es
     return Estimate(nodes, steps)
 
@@ -136,7 +138,7 @@ def build(
             store.save(0, p.top)
         accept(0, p.top)
     bits = decider_bits(deciders)
-    tasks = [(space.states, space.symbols, cap, bits, k, p.unit(k).prefix)
+    tasks = [(space.dims, space.states, space.symbols, cap, bits, k, p.unit(k).prefix)
              for k in chosen if k != 0 and k not in results]
     if scheduler:
         stream = executors.dask_cluster(tasks, scheduler)
@@ -160,4 +162,4 @@ def build(
 
 def run_unit(space: Space, cap: int, unit, deciders=ALL_DECIDERS) -> dict:
     """The raw result of one unit of a plan."""
-    return _core.run_unit(space.states, space.symbols, cap, decider_bits(deciders), unit.prefix, -1)
+    return _core.run_unit(space.dims, space.states, space.symbols, cap, decider_bits(deciders), unit.prefix, -1)

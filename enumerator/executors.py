@@ -11,9 +11,9 @@ from . import _core
 
 
 def run_task(task: tuple) -> tuple:
-    """One unit: (n, m, cap, bits, index, prefix) -> (index, result). Top level, so it pickles."""
-    n, m, cap, bits, index, prefix = task
-    return index, _core.run_unit(n, m, cap, bits, prefix, -1)
+    """One unit: (dims, n, m, cap, bits, index, prefix) -> (index, result). Top level, so it pickles."""
+    dims, n, m, cap, bits, index, prefix = task
+    return index, _core.run_unit(dims, n, m, cap, bits, prefix, -1)
 
 
 def inline(tasks):

@@ -5,8 +5,8 @@ from dataclasses import dataclass
 
 from ..errors import SpaceError, TooLargeError
 
-# The C core keeps weights in 128 bits: the space size times the mirror
-# factor 2 times the m blank images must stay below 2**127.
+# The C core keeps weights in 128 bits: the space size times the symmetry
+# factor (2 in 1D, 8 in 2D) times the m blank images must stay below 2**127.
 COUNT_BITS = 127
 MAX_ENTRIES = 64
 MAX_CAP = 10**7
@@ -68,7 +68,7 @@ class Space:
                 f"{self.label} has {self.entries} table entries, over the core's limit of "
                 f"{MAX_ENTRIES}; use fewer states or symbols, or --sample"
             )
-        if (self.size * 2 * self.symbols).bit_length() > COUNT_BITS:
+        if (self.size * 8 * self.symbols).bit_length() > COUNT_BITS:
             raise TooLargeError(
                 f"{self.label} holds {self.size:.3e} machines, too many for exact 128-bit "
                 "counts; use fewer states or symbols"

@@ -3,6 +3,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+import numpy as np
+
 from ..errors import InvariantError
 from .space import Space
 
@@ -49,6 +51,48 @@ def _trim(hist: list) -> list:
     while end and hist[end - 1] == 0:
         end -= 1
     return hist[:end]
+
+
+def size_of(shape: tuple) -> int:
+    """The output-size histogram's index: the length in 1D, the longer side in 2D."""
+    return max(shape)
+
+
+def dihedral_images(grids: np.ndarray, cls: int) -> list[np.ndarray]:
+    """Symmetry images of a stack of 2D outputs (K x rows x cols) for class cls:
+    0 none (the first run halted at once), 1 the 4 rotations, 2 all 8 with the flip."""
+    if cls == 0:
+        return [grids]
+    rots = [np.rot90(grids, k, axes=(1, 2)) for k in range(4)]
+    if cls == 1:
+        return rots
+    flipped = grids[:, ::-1, :]
+    return rots + [np.rot90(flipped, k, axes=(1, 2)) for k in range(4)]
+
+
+def _expand_2d(raw: dict, m: int) -> dict:
+    """flag, rows, cols, cells -> {image bytes (with its shape): count}, blank swaps included."""
+    by_class: dict = {}
+    for key, w in raw.items():
+        rows, cols = key[1] | key[2] << 8, key[3] | key[4] << 8
+        by_class.setdefault((key[0], rows, cols), []).append((key[5:], w))
+    flat: dict = {}
+    perms = []
+    for b in range(m):
+        perm = np.arange(m, dtype=np.uint8)
+        perm[0], perm[b] = b, 0
+        perms.append(perm)
+    for (cls, rows, cols), items in by_class.items():
+        grids = np.frombuffer(b"".join(k for k, _ in items), dtype=np.uint8).reshape(len(items), rows, cols)
+        weights = [w for _, w in items]
+        for img in dihedral_images(grids, cls):
+            shape = img.shape[1:]
+            for perm in perms:
+                keys = np.ascontiguousarray(perm[img]).reshape(len(items), -1)
+                for k, w in zip(map(bytes, keys), weights):
+                    slot = (shape, k)
+                    flat[slot] = flat.get(slot, 0) + w
+    return flat
 
 
 def blank_swaps(m: int) -> list[bytes]:
@@ -101,9 +145,9 @@ class Tally:
     def total_count(self) -> int:
         return sum(sum(g.values()) for g in self.groups.values())
 
-    def count(self, symbols) -> int:
+    def count(self, symbols, shape=None) -> int:
         key = bytes(symbols)
-        return self.groups.get((len(key),), {}).get(key, 0)
+        return self.groups.get(shape or (len(key),), {}).get(key, 0)
 
     def distinct(self) -> int:
         return sum(len(g) for g in self.groups.values())
@@ -111,18 +155,21 @@ class Tally:
     @classmethod
     def from_partial(cls, space: Space, cap: int, part: Partial, **extra) -> "Tally":
         """Expand mirror images and blank relabellings, then check every invariant."""
-        swaps = blank_swaps(space.symbols)
-        flat: dict[bytes, int] = {}
-        for key, w in part.raw.items():
-            out = key[1:]
-            images = (out, out[::-1]) if key[0] else (out,)
-            for img in images:
-                for table in swaps:
-                    k = img.translate(table)
-                    flat[k] = flat.get(k, 0) + w
+        if space.dims == 1:
+            swaps = blank_swaps(space.symbols)
+            flat: dict = {}
+            for key, w in part.raw.items():
+                out = key[1:]
+                images = (out, out[::-1]) if key[0] else (out,)
+                for img in images:
+                    for table in swaps:
+                        k = ((len(img),), img.translate(table))
+                        flat[k] = flat.get(k, 0) + w
+        else:
+            flat = _expand_2d(part.raw, space.symbols)
         groups: dict = {}
-        for k in sorted(flat, key=lambda s: (len(s), s)):
-            groups.setdefault((len(k),), {})[k] = flat[k]
+        for shape, k in sorted(flat):
+            groups.setdefault(shape, {})[k] = flat[(shape, k)]
         tally = cls(
             space=space,
             cap=cap,
@@ -158,8 +205,10 @@ class Tally:
                 f"the expanded counts sum to {self.total_count}, not blanks x halting = "
                 f"{self.blanks * self.halting}; the symmetry expansion is inconsistent (a bug)"
             )
+        by_size: dict = {}
         for shape, group in self.groups.items():
-            length = shape[0]
-            hist = self.length_hist[length] if length < len(self.length_hist) else 0
-            if sum(group.values()) != self.blanks * hist:
-                raise InvariantError(f"length {length}: counts disagree with the length histogram (a bug)")
+            by_size[size_of(shape)] = by_size.get(size_of(shape), 0) + sum(group.values())
+        for size, total in by_size.items():
+            hist = self.length_hist[size] if size < len(self.length_hist) else 0
+            if total != self.blanks * hist:
+                raise InvariantError(f"size {size}: counts disagree with the output-size histogram (a bug)")

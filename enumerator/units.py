@@ -72,7 +72,7 @@ class Plan:
 def make_plan(space: Space, cap: int, depth: int, bits: int, deciders: tuple) -> Plan:
     if depth < 0 or depth >= max(1, space.entries):
         raise SpaceError(f"a split depth of {depth} does not fit {space.label}; use 0 to {max(0, space.entries - 1)}")
-    top = _core.run_unit(space.states, space.symbols, cap, bits, (), depth if depth > 0 else -1)
+    top = _core.run_unit(space.dims, space.states, space.symbols, cap, bits, (), depth if depth > 0 else -1)
     cuts = top.pop("cuts")
     units = [Unit(i + 1, tuple(p), w) for i, (p, w) in enumerate(cuts)]
     return Plan(space, cap, tuple(deciders), depth, top, units)

@@ -5,7 +5,8 @@ import math
 
 import numpy as np
 
-from .arrays import codes_of, exact_sum
+from ..enumerator.tally import dihedral_images
+from .arrays import exact_sum
 from .table import Table
 
 
@@ -27,13 +28,13 @@ def problems(table: Table) -> list[str]:
         out.append("the output-size histogram does not sum to the halting total")
     if len(t.hist_steps) > t.cap + 1:
         out.append(f"the step histogram reaches past the cap {t.cap}")
+    by_size: dict = {}
     for shape in t.shapes:
-        g = t.groups[shape]
-        if t.space.dims == 1:
-            size = shape[0]
-            if size < len(t.hist_len) and exact_sum(g.counts) != t.blanks * t.hist_len[size]:
-                out.append(f"length {size}: the counts disagree with the output-size histogram")
+        by_size[max(shape)] = by_size.get(max(shape), 0) + exact_sum(t.groups[shape].counts)
         out += [f"shape {shape}: {p}" for p in _closure(t, shape)]
+    for size, total in sorted(by_size.items()):
+        if size >= len(t.hist_len) or total != t.blanks * t.hist_len[size]:
+            out.append(f"size {size}: the counts disagree with the output-size histogram")
     return out
 
 
@@ -42,6 +43,11 @@ def _images(table: Table, shape: tuple, rows: np.ndarray):
     m = table.space.symbols
     if table.space.dims == 1:
         yield "reversal", shape, rows[:, ::-1]
+    else:
+        grids = rows.reshape(len(rows), *shape)
+        names = ["rotation 90", "rotation 180", "rotation 270", "flip", "flip+90", "flip+180", "flip+270"]
+        for name, img in zip(names, dihedral_images(grids, 2)[1:]):
+            yield name, tuple(img.shape[1:]), img.reshape(len(rows), -1)
     for b in range(1, m):
         perm = np.arange(m, dtype=np.uint8)
         perm[0], perm[b] = b, 0
@@ -56,7 +62,12 @@ def _closure(table: Table, shape: tuple) -> list[str]:
     out = []
     for name, img_shape, img in _images(table, shape, rows):
         pos = table._position(img_shape, np.ascontiguousarray(img))
-        bad = np.flatnonzero((pos < 0) | (counts[np.maximum(pos, 0)] != counts))
+        other = table.groups.get(img_shape)
+        if other is None:
+            out.append(f"no key of shape {img_shape} for the {name} images")
+            continue
+        theirs = np.asarray(other.counts, dtype=object)[np.maximum(pos, 0)]
+        bad = np.flatnonzero((pos < 0) | (theirs != counts))
         if len(bad):
             out.append(f"{len(bad)} keys differ in count from their {name} image, "
                        f"e.g. {table.key_text(shape, rows[bad[0]])}")

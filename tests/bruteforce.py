@@ -86,3 +86,63 @@ def code_of(symbols: bytes, m: int) -> int:
     for s in symbols:
         c = c * m + s
     return c
+
+
+# 2D: directions N, E, S, W as (row step, column step); north is up (row - 1)
+STEPS_2D = ((-1, 0), (0, 1), (1, 0), (0, -1))
+
+
+def brute_force_2d(n: int, m: int, cap: int):
+    """Returns (counts, halting): counts[(rows, cols, code)] over every (machine, blank)
+    run, the code row-major from the north-west cell; halting[b] per blank.
+
+    Option o of an entry: o < m is HALT(write o); otherwise v = o - m gives write
+    v // (4n), direction (v // n) % 4 in N, E, S, W order, next v % n."""
+    options = 4 * n * m + m
+    entries = n * m
+    total = options**entries
+    side = 2 * cap + 1
+    counts: Counter = Counter()
+    halting = [0] * m
+    idx = np.arange(total, dtype=np.int64)
+    table = decode(idx, options, entries)
+    dr = np.array([s[0] for s in STEPS_2D])
+    dc = np.array([s[1] for s in STEPS_2D])
+    for blank in range(m):
+        grid = np.full((total, side, side), blank, dtype=np.uint8)
+        r = np.full(total, cap, dtype=np.int64)
+        c = np.full(total, cap, dtype=np.int64)
+        rlo, rhi, clo, chi = r.copy(), r.copy(), c.copy(), c.copy()
+        state = np.zeros(total, dtype=np.int64)
+        alive = np.arange(total)
+        for step in range(1, cap + 1):
+            if len(alive) == 0:
+                break
+            rows = alive
+            opt = table[rows, state[rows] * m + grid[rows, r[rows], c[rows]]]
+            stop = opt < m
+            done = rows[stop]
+            grid[done, r[done], c[done]] = opt[stop]
+            halting[blank] += len(done)
+            _tally_2d(counts, grid[done], rlo[done], rhi[done], clo[done], chi[done], m)
+            rows, v = rows[~stop], opt[~stop] - m
+            grid[rows, r[rows], c[rows]] = v // (4 * n)
+            d = (v // n) % 4
+            r[rows] += dr[d]
+            c[rows] += dc[d]
+            state[rows] = v % n
+            rlo[rows] = np.minimum(rlo[rows], r[rows])
+            rhi[rows] = np.maximum(rhi[rows], r[rows])
+            clo[rows] = np.minimum(clo[rows], c[rows])
+            chi[rows] = np.maximum(chi[rows], c[rows])
+            alive = rows
+    return counts, halting
+
+
+def _tally_2d(counts: Counter, grids, rlo, rhi, clo, chi, m: int) -> None:
+    for g, a, b, x, y in zip(grids, rlo, rhi, clo, chi):
+        box = g[a: b + 1, x: y + 1]
+        code = 0
+        for s in box.reshape(-1).tolist():
+            code = code * m + s
+        counts[(box.shape[0], box.shape[1], code)] += 1

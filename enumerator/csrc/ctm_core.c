@@ -1,16 +1,18 @@
-/* The 1D tree-normal-form enumerator (see DESIGN.md section 2).
+/* The tree-normal-form enumerator (DESIGN.md section 2) and the one-machine
+ * simulator. The search itself is ctm_search.inc, compiled for 1D and 2D.
  *
- * A depth-first search over partial machines. A segment simulates from a
- * configuration until the run needs an undefined entry (a branch point), hits
- * the cap, or a decider proves it never halts. A branch point tallies its m
- * HALT leaves and recurses into every MOVE option from the same configuration,
- * so no run is restarted. Weights: a node with u undefined entries stands for
- * O^u machines times the new-state factors collected on its path; the mirror
- * image of every run under the first move R is counted by the factor 2. */
+ * Weights: a node with u undefined entries stands for O^u machines times the
+ * number of unused states each time a move into the lowest unused state stands
+ * for all of them, times the symmetry factor of its class (u->factor[u->sym]):
+ * 1D 2 under the first move R (mirror images); 2D 4 under the first move E
+ * (rotations) and 8 under the first vertical move N (and the N-S flip). */
 #include "ctm_core.h"
 
 #include <stdlib.h>
 #include <string.h>
+
+#define CTM_CAT2(a, b) a##b
+#define CTM_CAT(a, b) CTM_CAT2(a, b)
 
 const char *ctm_strerror(int code) {
     switch (code) {
@@ -25,115 +27,50 @@ const char *ctm_strerror(int code) {
 
 void ctm_free(void *p) { free(p); }
 
-/* ---------------------------------------------------------------- map */
-
-static uint64_t hash_bytes(const uint8_t *k, uint32_t len) {
-    uint64_t h = 0xcbf29ce484222325ull ^ len;
-    for (uint32_t i = 0; i < len; i++) h = (h ^ k[i]) * 0x100000001b3ull;
-    h ^= h >> 29;
-    h *= 0xbf58476d1ce4e5b9ull;
-    h ^= h >> 32;
-    return h | 1u; /* 0 marks an empty slot */
-}
-
-int ctm_map_init(ctm_map *map) {
-    memset(map, 0, sizeof *map);
-    map->cap = 1024;
-    map->hashes = calloc(map->cap, sizeof *map->hashes);
-    map->offs = malloc(map->cap * sizeof *map->offs);
-    map->lens = malloc(map->cap * sizeof *map->lens);
-    map->vals = malloc(map->cap * sizeof *map->vals);
-    map->arena_cap = 1 << 16;
-    map->arena = malloc(map->arena_cap);
-    if (!map->hashes || !map->offs || !map->lens || !map->vals || !map->arena) {
-        ctm_map_free(map);
-        return CTM_ENOMEM;
-    }
-    return CTM_OK;
-}
-
-void ctm_map_free(ctm_map *map) {
-    free(map->hashes);
-    free(map->offs);
-    free(map->lens);
-    free(map->vals);
-    free(map->arena);
-    memset(map, 0, sizeof *map);
-}
-
-static int map_grow(ctm_map *map) {
-    size_t ncap = map->cap * 2;
-    uint64_t *h = calloc(ncap, sizeof *h);
-    uint64_t *o = malloc(ncap * sizeof *o);
-    uint32_t *l = malloc(ncap * sizeof *l);
-    ctm_count *v = malloc(ncap * sizeof *v);
-    if (!h || !o || !l || !v) {
-        free(h); free(o); free(l); free(v);
-        return CTM_ENOMEM;
-    }
-    for (size_t i = 0; i < map->cap; i++) {
-        if (!map->hashes[i]) continue;
-        size_t j = map->hashes[i] & (ncap - 1);
-        while (h[j]) j = (j + 1) & (ncap - 1);
-        h[j] = map->hashes[i];
-        o[j] = map->offs[i];
-        l[j] = map->lens[i];
-        v[j] = map->vals[i];
-    }
-    free(map->hashes); free(map->offs); free(map->lens); free(map->vals);
-    map->hashes = h; map->offs = o; map->lens = l; map->vals = v;
-    map->cap = ncap;
-    return CTM_OK;
-}
-
-int ctm_map_add(ctm_map *map, const uint8_t *key, uint32_t len, ctm_count val) {
-    uint64_t h = hash_bytes(key, len);
-    size_t j = h & (map->cap - 1);
-    while (map->hashes[j]) {
-        if (map->hashes[j] == h && map->lens[j] == len &&
-            memcmp(map->arena + map->offs[j], key, len) == 0) {
-            map->vals[j] += val;
-            return CTM_OK;
-        }
-        j = (j + 1) & (map->cap - 1);
-    }
-    if (map->arena_cap - map->arena_len < len) {
-        size_t ncap = map->arena_cap * 2;
-        while (ncap - map->arena_len < len) ncap *= 2;
-        uint8_t *a = realloc(map->arena, ncap);
-        if (!a) return CTM_ENOMEM;
-        map->arena = a;
-        map->arena_cap = ncap;
-    }
-    memcpy(map->arena + map->arena_len, key, len);
-    map->hashes[j] = h;
-    map->offs[j] = map->arena_len;
-    map->lens[j] = len;
-    map->vals[j] = val;
-    map->arena_len += len;
-    map->size++;
-    if (map->size * 2 > map->cap) return map_grow(map);
-    return CTM_OK;
-}
-
-/* ---------------------------------------------------------------- enumerator */
+/* ---------------------------------------------------------------- setup */
 
 int ctm_unit_init(ctm_unit *u) {
+    if (u->dims != 1 && u->dims != 2) return CTM_EINVAL;
     if (u->n < 1 || u->m < 2 || u->cap < 1 || u->n * u->m > CTM_MAX_ENTRIES || u->m > 255)
         return CTM_EINVAL;
+    if (u->dims == 2 && u->cap > CTM_MAX_CAP_2D) return CTM_EINVAL;
     if (u->prefix_len < 0 || u->prefix_len > u->n * u->m) return CTM_EINVAL;
     u->nent = u->n * u->m;
     u->used = 1;
     u->ndef = 0;
+    u->sym = 0;
     memset(u->def, 0, sizeof u->def);
-    ctm_count opts = (ctm_count)(2 * u->n * u->m + u->m);
-    ctm_count limit = ~(ctm_count)0 / (4 * (ctm_count)u->m); /* room for mirror and blanks */
+    int ndir = u->dims == 1 ? 2 : 4;
+    ctm_count opts = (ctm_count)(ndir * u->n * u->m + u->m);
+    ctm_count limit = ~(ctm_count)0 / (16 * (ctm_count)u->m); /* room for symmetry and blanks */
     u->pow_opts[0] = 1;
     for (int k = 1; k <= u->nent; k++) {
         if (u->pow_opts[k - 1] > limit / opts) return CTM_EOVERFLOW;
         u->pow_opts[k] = u->pow_opts[k - 1] * opts;
     }
-    u->tape_len = 2 * u->cap + 3 + 2 * CTM_REC_WINDOW; /* padding for record windows */
+    u->factor[0] = 1;
+    if (u->dims == 1) {
+        /* the tape has CTM_REC_WINDOW cells of padding for the record windows */
+        u->tape_len = 2 * u->cap + 3 + 2 * CTM_REC_WINDOW;
+        u->stride = 0;
+        u->origin_x = u->cap + 1 + CTM_REC_WINDOW;
+        u->origin_y = 0;
+        u->factor[1] = 2;
+        u->dx[0] = 1; u->dx[1] = -1;
+        u->dh[0] = 1; u->dh[1] = -1;
+        u->dy[0] = u->dy[1] = 0;
+    } else {
+        u->stride = 2 * u->cap + 3;
+        u->tape_len = u->stride * u->stride;
+        u->origin_x = u->origin_y = u->cap + 1;
+        u->factor[1] = 4;
+        u->factor[2] = 8;
+        int64_t s = u->stride;
+        u->dx[CTM_N] = 0;  u->dy[CTM_N] = -1; u->dh[CTM_N] = -s;
+        u->dx[CTM_E] = 1;  u->dy[CTM_E] = 0;  u->dh[CTM_E] = 1;
+        u->dx[CTM_S] = 0;  u->dy[CTM_S] = 1;  u->dh[CTM_S] = s;
+        u->dx[CTM_W] = -1; u->dy[CTM_W] = 0;  u->dh[CTM_W] = -1;
+    }
     u->halting = u->non_halting = u->undecided = 0;
     u->halting_nodes = 0;
     u->longest_run = 0;
@@ -149,14 +86,16 @@ int ctm_unit_init(ctm_unit *u) {
     z = (z ^ (z >> 27)) * 0x94d049bb133111ebull;
     u->rng = (z ^ (z >> 31)) | 1u;
     u->probe_factor = 1.0;
+    memset(u->save_buf, 0, sizeof u->save_buf);
+    memset(u->save_cap, 0, sizeof u->save_cap);
     u->tape = calloc((size_t)u->tape_len, 1);
     u->snap = calloc((size_t)u->tape_len, 1);
-    u->scratch = calloc((size_t)u->tape_len + 1, 1);
-    u->saves = malloc((size_t)u->tape_len * (size_t)(u->nent + 1));
+    u->scratch_cap = 4096;
+    u->scratch = malloc(u->scratch_cap);
     u->hist_steps = calloc((size_t)u->cap + 1, sizeof(ctm_count));
     u->hist_len = calloc((size_t)u->cap + 2, sizeof(ctm_count));
     int rc = ctm_map_init(&u->raw);
-    if (rc || !u->tape || !u->snap || !u->scratch || !u->saves || !u->hist_steps || !u->hist_len) {
+    if (rc || !u->tape || !u->snap || !u->scratch || !u->hist_steps || !u->hist_len) {
         ctm_unit_free(u);
         return CTM_ENOMEM;
     }
@@ -164,14 +103,30 @@ int ctm_unit_init(ctm_unit *u) {
 }
 
 void ctm_unit_free(ctm_unit *u) {
-    free(u->tape); free(u->snap); free(u->scratch); free(u->saves);
+    free(u->tape); free(u->snap); free(u->scratch);
     free(u->hist_steps); free(u->hist_len); free(u->cuts); free(u->cut_weights);
-    u->tape = u->snap = u->scratch = u->saves = NULL;
+    for (int d = 0; d <= CTM_MAX_ENTRIES; d++) {
+        free(u->save_buf[d]);
+        u->save_buf[d] = NULL;
+    }
+    u->tape = u->snap = u->scratch = NULL;
     u->hist_steps = u->hist_len = NULL;
     u->cuts = NULL;
     u->cut_weights = NULL;
     if (u->raw.hashes) ctm_map_free(&u->raw);
 }
+
+/* ---------------------------------------------------------------- helpers shared by both dimensions */
+
+typedef struct {
+    int state;
+    int64_t head, x, y;           /* cell index and coordinates */
+    int64_t xlo, xhi, ylo, yhi;   /* the box of every cell the head occupied */
+    int64_t step;
+    ctm_count mult;               /* the new-state factors collected on the path */
+} config;
+
+static inline int64_t cell(const ctm_unit *u, int64_t x, int64_t y) { return y * u->stride + x; }
 
 static uint64_t next_rand(ctm_unit *u) { /* xorshift64* */
     u->rng ^= u->rng >> 12;
@@ -180,9 +135,24 @@ static uint64_t next_rand(ctm_unit *u) { /* xorshift64* */
     return u->rng * 0x2545f4914f6cdd1dull;
 }
 
-/* On fresh blank tape, does the chain of blank-reading entries from `state`
- * keep moving in direction `dir` and close into a cycle? Then the head runs
- * off forever. */
+static int grow(uint8_t **buf, size_t *cap, size_t need) {
+    if (need <= *cap) return CTM_OK;
+    size_t ncap = *cap ? *cap : 256;
+    while (ncap < need) ncap *= 2;
+    uint8_t *p = realloc(*buf, ncap);
+    if (!p) return CTM_ENOMEM;
+    *buf = p;
+    *cap = ncap;
+    return CTM_OK;
+}
+
+static void set_touch(ctm_unit *u, const config *c) {
+    u->t_xlo = c->xlo; u->t_xhi = c->xhi; u->t_ylo = c->ylo; u->t_yhi = c->yhi;
+}
+
+/* Head on fresh blank grid, having just moved in direction dir: does the
+ * chain of blank-reading entries from `state` keep moving that way and close
+ * into a cycle? Then every cell ahead is fresh and the head runs off forever. */
 static int escapes(const ctm_unit *u, int state, int dir) {
     uint64_t seen = 0;
     for (;;) {
@@ -194,13 +164,109 @@ static int escapes(const ctm_unit *u, int state, int dir) {
     }
 }
 
-/* Is the tape on [lo, hi] the one snapshotted on [slo, shi] (blank outside)? */
-static int same_tape(const ctm_unit *u, int64_t lo, int64_t hi, int64_t slo, int64_t shi) {
-    for (int64_t i = lo; i < slo; i++)
-        if (u->tape[i]) return 0;
-    for (int64_t i = shi + 1; i <= hi; i++)
-        if (u->tape[i]) return 0;
-    return memcmp(u->tape + slo, u->snap + slo, (size_t)(shi - slo + 1)) == 0;
+static void take_snapshot(ctm_unit *u, const config *b) {
+    size_t w = (size_t)(b->xhi - b->xlo + 1);
+    for (int64_t y = b->ylo; y <= b->yhi; y++)
+        memcpy(u->snap + cell(u, b->xlo, y), u->tape + cell(u, b->xlo, y), w);
+    u->s_xlo = b->xlo; u->s_xhi = b->xhi; u->s_ylo = b->ylo; u->s_yhi = b->yhi;
+}
+
+static int zero_run(const uint8_t *p, int64_t n) {
+    for (int64_t i = 0; i < n; i++)
+        if (p[i]) return 0;
+    return 1;
+}
+
+/* Is the grid on box b the snapshot (blank outside the snapshot's box)? */
+static int same_region(const ctm_unit *u, const config *b) {
+    for (int64_t y = b->ylo; y <= b->yhi; y++) {
+        const uint8_t *row = u->tape + cell(u, 0, y);
+        if (y < u->s_ylo || y > u->s_yhi) {
+            if (!zero_run(row + b->xlo, b->xhi - b->xlo + 1)) return 0;
+            continue;
+        }
+        if (!zero_run(row + b->xlo, u->s_xlo - b->xlo)) return 0;
+        if (!zero_run(row + u->s_xhi + 1, b->xhi - u->s_xhi)) return 0;
+        if (memcmp(row + u->s_xlo, u->snap + cell(u, u->s_xlo, y), (size_t)(u->s_xhi - u->s_xlo + 1)))
+            return 0;
+    }
+    return 1;
+}
+
+static int save_region(ctm_unit *u, int d, const config *c) {
+    size_t w = (size_t)(c->xhi - c->xlo + 1), h = (size_t)(c->yhi - c->ylo + 1);
+    int rc = grow(&u->save_buf[d], &u->save_cap[d], w * h);
+    if (rc) return rc;
+    for (size_t r = 0; r < h; r++)
+        memcpy(u->save_buf[d] + r * w, u->tape + cell(u, c->xlo, c->ylo + (int64_t)r), w);
+    return CTM_OK;
+}
+
+/* Blank what the finished child touched, then put back this branch point's box. */
+static void restore_region(ctm_unit *u, int d, const config *c) {
+    size_t tw = (size_t)(u->t_xhi - u->t_xlo + 1);
+    for (int64_t y = u->t_ylo; y <= u->t_yhi; y++) memset(u->tape + cell(u, u->t_xlo, y), 0, tw);
+    size_t w = (size_t)(c->xhi - c->xlo + 1), h = (size_t)(c->yhi - c->ylo + 1);
+    for (size_t r = 0; r < h; r++)
+        memcpy(u->tape + cell(u, c->xlo, c->ylo + (int64_t)r), u->save_buf[d] + r * w, w);
+}
+
+static int record_cut(ctm_unit *u, const config *c) {
+    const int d = u->ndef;
+    if (u->n_cuts == u->cuts_cap) {
+        size_t ncap = u->cuts_cap ? u->cuts_cap * 2 : 256;
+        uint16_t *p = realloc(u->cuts, ncap * (size_t)(d ? d : 1) * sizeof *p);
+        if (!p) return CTM_ENOMEM;
+        u->cuts = p;
+        ctm_count *w = realloc(u->cut_weights, ncap * sizeof *w);
+        if (!w) return CTM_ENOMEM;
+        u->cut_weights = w;
+        u->cuts_cap = ncap;
+    }
+    memcpy(u->cuts + u->n_cuts * (size_t)d, u->path, (size_t)d * sizeof *u->path);
+    u->cut_weights[u->n_cuts] = c->mult * u->pow_opts[u->nent - d] * u->factor[u->sym];
+    u->n_cuts++;
+    return CTM_OK;
+}
+
+/* The m HALT(write) leaves of a branch point. Key: the symmetry class byte,
+ * in 2D rows and cols (uint16 LE each), then the cells row-major with the head
+ * cell written. */
+static int halt_leaves(ctm_unit *u, const config *c) {
+    const int m = u->m;
+    u->halting_nodes++;
+    ctm_count w = c->mult * u->pow_opts[u->nent - u->ndef - 1];
+    int64_t cols = c->xhi - c->xlo + 1, rows = c->yhi - c->ylo + 1;
+    size_t hdr = u->dims == 2 ? 4 : 0;
+    size_t len = 1 + hdr + (size_t)(rows * cols);
+    int rc = grow(&u->scratch, &u->scratch_cap, len);
+    if (rc) return rc;
+    uint8_t *key = u->scratch;
+    key[0] = (uint8_t)u->sym;
+    if (hdr) {
+        key[1] = (uint8_t)(rows & 0xff); key[2] = (uint8_t)(rows >> 8);
+        key[3] = (uint8_t)(cols & 0xff); key[4] = (uint8_t)(cols >> 8);
+    }
+    uint8_t *cells = key + 1 + hdr;
+    for (int64_t r = 0; r < rows; r++)
+        memcpy(cells + r * cols, u->tape + cell(u, c->xlo, c->ylo + r), (size_t)cols);
+    size_t at = (size_t)((c->y - c->ylo) * cols + (c->x - c->xlo));
+    int64_t nonblank = 0;
+    for (int64_t i = 0; i < rows * cols; i++) nonblank += cells[i] != 0;
+    nonblank -= cells[at] != 0;
+    for (int s = 0; s < m; s++) {
+        cells[at] = (uint8_t)s;
+        rc = ctm_map_add(&u->raw, key, (uint32_t)len, w);
+        if (rc) return rc;
+    }
+    ctm_count total = w * (ctm_count)m * u->factor[u->sym];
+    int64_t size = cols > rows ? cols : rows;
+    u->halting += total;
+    u->hist_steps[c->step + 1] += total;
+    u->hist_len[size] += total;
+    if (c->step + 1 > u->longest_run) u->longest_run = c->step + 1;
+    if (nonblank + 1 > u->most_nonblank) u->most_nonblank = nonblank + 1;
+    return CTM_OK;
 }
 
 /* Translated cycler. At a new record cell p (side 0: rightmost, side 1:
@@ -242,207 +308,21 @@ static int translated(ctm_unit *u, int side, int state, int64_t pos, int64_t rea
     return found;
 }
 
-typedef struct {
-    int state;
-    int64_t head, lo, hi, step;
-    ctm_count mult; /* the new-state factors collected on the path */
-} config;
+/* ---------------------------------------------------------------- the search, per dimension */
 
-static int segment(ctm_unit *u, config c);
-
-static int branch(ctm_unit *u, config c) {
-    const int d = u->ndef;
-    const int following = u->prefix_len > d;
-    if (!following && u->cut_depth == d && !u->probe_seed) {
-        if (u->n_cuts == u->cuts_cap) {
-            size_t ncap = u->cuts_cap ? u->cuts_cap * 2 : 256;
-            uint16_t *p = realloc(u->cuts, ncap * (size_t)(d ? d : 1) * sizeof *p);
-            if (!p) return CTM_ENOMEM;
-            u->cuts = p;
-            ctm_count *w = realloc(u->cut_weights, ncap * sizeof *w);
-            if (!w) return CTM_ENOMEM;
-            u->cut_weights = w;
-            u->cuts_cap = ncap;
-        }
-        memcpy(u->cuts + u->n_cuts * (size_t)d, u->path, (size_t)d * sizeof *u->path);
-        u->cut_weights[u->n_cuts] = c.mult * u->pow_opts[u->nent - d] * (u->mirror_flag ? 2 : 1);
-        u->n_cuts++;
-        u->touch_lo = c.lo;
-        u->touch_hi = c.hi;
-        return CTM_OK;
-    }
-    const int m = u->m;
-    const int root = d == 0;
-    const int ndirs = root ? 1 : 2;
-    const int nnext = u->used + (u->used < u->n);
-    const int nmoves = m * ndirs * nnext;
-    const int e = c.state * m + u->tape[c.head];
-    int first = 0, last = nmoves - 1;
-
-    if (following) {
-        if (u->prefix[d] >= nmoves) return CTM_EINVAL;
-        first = last = u->prefix[d];
-    } else if (u->probe_seed) {
-        u->est_nodes += u->probe_factor;
-        int k = m + nmoves;
-        int pick = (int)(next_rand(u) % (uint64_t)k);
-        u->probe_factor *= k;
-        if (pick < m) {
-            u->touch_lo = c.lo;
-            u->touch_hi = c.hi;
-            return CTM_OK;
-        }
-        first = last = pick - m;
-    } else {
-        /* the m HALT leaves of this branch point */
-        u->halting_nodes++;
-        ctm_count w = c.mult * u->pow_opts[u->nent - d - 1];
-        int64_t len = c.hi - c.lo + 1;
-        uint8_t *key = u->scratch;
-        key[0] = (uint8_t)u->mirror_flag;
-        memcpy(key + 1, u->tape + c.lo, (size_t)len);
-        int64_t nonblank = 0;
-        for (int64_t i = 0; i < len; i++) nonblank += key[1 + i] != 0;
-        nonblank -= key[1 + c.head - c.lo] != 0;
-        for (int s = 0; s < m; s++) {
-            key[1 + c.head - c.lo] = (uint8_t)s;
-            int rc = ctm_map_add(&u->raw, key, (uint32_t)(len + 1), w);
-            if (rc) return rc;
-        }
-        ctm_count total = w * (ctm_count)m * (u->mirror_flag ? 2 : 1);
-        u->halting += total;
-        u->hist_steps[c.step + 1] += total;
-        u->hist_len[len] += total;
-        if (c.step + 1 > u->longest_run) u->longest_run = c.step + 1;
-        if (nonblank + 1 > u->most_nonblank) u->most_nonblank = nonblank + 1;
-    }
-
-    uint8_t *save = u->saves + (size_t)d * (size_t)u->tape_len;
-    memcpy(save + c.lo, u->tape + c.lo, (size_t)(c.hi - c.lo + 1));
-    const int used = u->used;
-    for (int k = first; k <= last; k++) {
-        int w = k / (ndirs * nnext);
-        int r = k % (ndirs * nnext);
-        int dir = (r / nnext == 0) ? 1 : -1;
-        int nxt = r % nnext;
-        config child = c;
-        if (nxt == used) {
-            child.mult *= (ctm_count)(u->n - used);
-            u->used = used + 1;
-        }
-        u->def[e] = 1;
-        u->wr[e] = (uint8_t)w;
-        u->mv[e] = (int8_t)dir;
-        u->nx[e] = (uint8_t)nxt;
-        u->ndef = d + 1;
-        u->path[d] = (uint16_t)k;
-        if (root) u->mirror_flag = 1;
-        int rc = segment(u, child);
-        if (root) u->mirror_flag = 0;
-        u->def[e] = 0;
-        u->ndef = d;
-        u->used = used;
-        /* put the tape back to this branch point's configuration */
-        if (u->touch_lo < c.lo) memset(u->tape + u->touch_lo, 0, (size_t)(c.lo - u->touch_lo));
-        if (u->touch_hi > c.hi) memset(u->tape + c.hi + 1, 0, (size_t)(u->touch_hi - c.hi));
-        memcpy(u->tape + c.lo, save + c.lo, (size_t)(c.hi - c.lo + 1));
-        if (rc) return rc;
-    }
-    u->touch_lo = c.lo;
-    u->touch_hi = c.hi;
-    return CTM_OK;
-}
-
-static int segment(ctm_unit *u, config c) {
-    const int m = u->m;
-    const unsigned dec = u->deciders;
-    const int64_t cap = u->cap;
-    const int64_t start = c.step;
-    ctm_count weight = c.mult * u->pow_opts[u->nent - u->ndef] * (u->mirror_flag ? 2 : 1);
-    int outcome; /* 0 undecided, 1 proven non-halting */
-    int state = c.state;
-    int64_t head = c.head, lo = c.lo, hi = c.hi, step = c.step;
-    /* Brent's cycle detection; the first snapshot waits 8 steps, since most
-     * segments reach a branch point sooner and would only pay for the copy */
-    int snap_state = -1;
-    int64_t snap_head = 0, snap_lo = lo, snap_hi = hi, power = 8, lam = 0;
-
-    if ((dec & CTM_DEC_FULL) && u->ndef == u->nent) {
-        outcome = 1;
-        goto done;
-    }
-    int64_t back_r = head, back_l = head; /* farthest back from each edge since its last record */
-    u->rec_n[0] = u->rec_n[1] = 0;
-    for (;;) {
-        if (step >= cap) {
-            outcome = 0;
-            break;
-        }
-        int e = state * m + u->tape[head];
-        if (!u->def[e]) {
-            u->steps += (uint64_t)(step - start);
-            if (u->probe_seed && u->ndef >= u->prefix_len)
-                u->est_steps += u->probe_factor * (double)(step - start);
-            config b = {state, head, lo, hi, step, c.mult};
-            return branch(u, b);
-        }
-        u->tape[head] = u->wr[e];
-        head += u->mv[e];
-        state = u->nx[e];
-        step++;
-        if (head < lo) {
-            lo = head;
-            if ((dec & CTM_DEC_ESCAPE) && escapes(u, state, -1)) { outcome = 1; break; }
-            if (dec & CTM_DEC_SHIFT) {
-                if (translated(u, 1, state, head, back_l)) { outcome = 1; break; }
-                back_l = head;
-            }
-        } else if (head > hi) {
-            hi = head;
-            if ((dec & CTM_DEC_ESCAPE) && escapes(u, state, 1)) { outcome = 1; break; }
-            if (dec & CTM_DEC_SHIFT) {
-                if (translated(u, 0, state, head, back_r)) { outcome = 1; break; }
-                back_r = head;
-            }
-        }
-        if (head < back_r) back_r = head;
-        if (head > back_l) back_l = head;
-        if (dec & CTM_DEC_CYCLE) {
-            if (state == snap_state && head == snap_head &&
-                same_tape(u, lo, hi, snap_lo, snap_hi)) {
-                outcome = 1;
-                break;
-            }
-            if (++lam == power) { /* Brent: a fresh snapshot at doubling intervals */
-                snap_state = state;
-                snap_head = head;
-                snap_lo = lo;
-                snap_hi = hi;
-                memcpy(u->snap + lo, u->tape + lo, (size_t)(hi - lo + 1));
-                power <<= 1;
-                lam = 0;
-            }
-        }
-    }
-done:
-    u->steps += (uint64_t)(step - start);
-    u->touch_lo = lo;
-    u->touch_hi = hi;
-    if (u->probe_seed) {
-        if (u->ndef >= u->prefix_len) u->est_steps += u->probe_factor * (double)(step - start);
-        return CTM_OK;
-    }
-    if (u->prefix_len > u->ndef) return CTM_EINVAL; /* the prefix names no branch point */
-    if (outcome) u->non_halting += weight;
-    else u->undecided += weight;
-    return CTM_OK;
-}
+#define DIM 1
+#include "ctm_search.inc"
+#undef DIM
+#define DIM 2
+#include "ctm_search.inc"
+#undef DIM
 
 int ctm_unit_run(ctm_unit *u) {
-    const int64_t origin = u->cap + 1 + CTM_REC_WINDOW;
-    config root = {0, origin, origin, origin, 0, 1};
-    u->mirror_flag = 0;
-    return segment(u, root);
+    config root = {0, 0, u->origin_x, u->origin_y, u->origin_x, u->origin_x,
+                   u->origin_y, u->origin_y, 0, 1};
+    root.head = cell(u, root.x, root.y);
+    u->sym = 0;
+    return u->dims == 1 ? segment_1(u, root) : segment_2(u, root);
 }
 
 /* ---------------------------------------------------------------- one machine */

@@ -16,6 +16,13 @@
 #define CTM_ESTOP (-4)     /* the caller asked to stop */
 
 #define CTM_MAX_ENTRIES 64 /* n*m, the number of transition-table entries */
+#define CTM_MAX_CAP_2D 4096 /* the 2D grid is (2 cap + 3)^2 bytes */
+
+/* 2D directions; 1D uses 0 = R, 1 = L */
+#define CTM_N 0
+#define CTM_E 1
+#define CTM_S 2
+#define CTM_W 3
 
 /* decider bits */
 #define CTM_DEC_FULL 1u    /* fully defined table, no HALT entry */
@@ -48,6 +55,7 @@ int ctm_map_add(ctm_map *map, const uint8_t *key, uint32_t len, ctm_count val);
 /* ---- the enumeration of one work unit ---- */
 typedef struct {
     /* inputs */
+    int dims;           /* 1 or 2 */
     int n, m;           /* states, symbols */
     int64_t cap;        /* step cap T */
     unsigned deciders;  /* CTM_DEC_* bits */
@@ -72,24 +80,30 @@ typedef struct {
 
     /* private state */
     int nent, used, ndef;
+    int sym;                     /* symmetry class of the path: 0 none yet, 1, 2 (2D) */
+    ctm_count factor[3];         /* machines per class member: 1, 2 (1D) or 1, 4, 8 (2D) */
     int8_t def[CTM_MAX_ENTRIES];
     uint8_t wr[CTM_MAX_ENTRIES];
-    int8_t mv[CTM_MAX_ENTRIES];
+    int8_t mv[CTM_MAX_ENTRIES];  /* direction index */
     uint8_t nx[CTM_MAX_ENTRIES];
     ctm_count pow_opts[CTM_MAX_ENTRIES + 1];
     uint16_t path[CTM_MAX_ENTRIES];
-    uint8_t *tape, *snap, *scratch, *saves;
-    int64_t tape_len;
+    int64_t dx[4], dy[4], dh[4]; /* per direction: coordinate and cell-index steps */
+    uint8_t *tape, *snap, *scratch;
+    size_t scratch_cap;
+    uint8_t *save_buf[CTM_MAX_ENTRIES + 1]; /* per depth: the box at the branch point */
+    size_t save_cap[CTM_MAX_ENTRIES + 1];
+    int64_t tape_len, stride, origin_x, origin_y;
+    int64_t s_xlo, s_xhi, s_ylo, s_yhi; /* the cycler snapshot's box */
+    int64_t t_xlo, t_xhi, t_ylo, t_yhi; /* the box a finished subtree left dirty */
     uint64_t rng;
     double probe_factor;
-    int mirror_flag;            /* 1 under the first move R: count mirror images too */
-    /* translated-cycler records, per side (0 right, 1 left): a ring of the latest */
+    /* translated-cycler records (1D), per side (0 right, 1 left): a ring of the latest */
     int rec_n[2];
     int rec_state[2][CTM_REC_RING];
     int64_t rec_pos[2][CTM_REC_RING];
     int64_t rec_reach[2][CTM_REC_RING]; /* farthest back the head went since the record before */
     uint8_t rec_cells[2][CTM_REC_RING][CTM_REC_WINDOW];
-    int64_t touch_lo, touch_hi; /* dirty tape span a finished subtree leaves */
 } ctm_unit;
 
 int ctm_unit_init(ctm_unit *u);   /* after the inputs are set */
