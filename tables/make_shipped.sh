@@ -1,11 +1,20 @@
 #!/usr/bin/env bash
-# Rebuild the tables that ship inside the package (run from the repository root).
+# Rebuild the tables that ship inside the package (run from the repository root on a
+# machine with at least 2 cores; the last two builds take minutes).
 set -euo pipefail
-note() { echo "shipped with ctmtab; cap $1, the busy beaver value"; }
+note() { echo "shipped with ctmtab; cap $1"; }
 for spec in "1 1" "2 6" "3 21" "4 107"; do
     set -- $spec
     ctmtab build --states "$1" --symbols 2 --max-steps "$2" -o "tables/1d-n$1-m2-t$2.ctmt" \
-        --builder "ctmtab project" --notes "$(note "S($1) = $2")" -q
+        --builder "ctmtab project" --notes "$(note "S($1) = $2, the busy beaver value")" -q
 done
 ctmtab build --states 2 --symbols 3 --max-steps 38 -o tables/1d-n2-m3-t38.ctmt \
-    --builder "ctmtab project" --notes "$(note "S(2,3) = 38")" -q
+    --builder "ctmtab project" --notes "$(note "S(2,3) = 38, the busy beaver value")" -q
+for n in 1 2 3; do
+    ctmtab build --dims 2 --states "$n" --symbols 2 --max-steps 2000 -o "tables/2d-n$n-m2-t2000.ctmt" \
+        --builder "ctmtab project" --notes "$(note "2000, as in the published 2D (4,2) table")" -q
+done
+ctmtab build --states 5 --symbols 2 --max-steps 500 -o tables/1d-n5-m2-t500.ctmt \
+    --builder "ctmtab project" --notes "$(note "500, as in the published (5,2) table")" -q
+ctmtab build --dims 2 --states 4 --symbols 2 --max-steps 2000 -o tables/2d-n4-m2-t2000.ctmt \
+    --builder "ctmtab project" --notes "$(note "2000, as in the published 2D (4,2) table")" -q

@@ -67,3 +67,52 @@ def test_2d_keys_lookups_and_export():
     assert out["count"][0] == t.count(key) and out["count"][1] == t.count("11/11")
     rows = dict(t.items((2, 2)))
     assert rows[key] == t.count(key)
+
+
+def life_step(grid: np.ndarray) -> np.ndarray:
+    """One Game of Life generation on a grid padded with dead cells (common practice: B3/S23)."""
+    g = np.pad(grid, 1)
+    nb = sum(np.roll(np.roll(g, dr, 0), dc, 1) for dr in (-1, 0, 1) for dc in (-1, 0, 1) if (dr, dc) != (0, 0))
+    out = ((nb == 3) | ((g == 1) & (nb == 2))).astype(np.uint8)
+    rows, cols = np.nonzero(out)
+    return out[rows.min(): rows.max() + 1, cols.min(): cols.max() + 1]
+
+
+def test_glider_phases_two_generations_apart_get_equal_ctm():
+    # Fact of the trade (common practice, REFERENCES.md): two generations on, a glider is the
+    # mirror image of its shape, shifted one cell diagonally (a glide reflection).
+    from ctmtab.tables import load
+    glider = np.array([[0, 1, 0], [0, 0, 1], [1, 1, 1]], dtype=np.uint8)
+    later = life_step(life_step(glider))
+    assert later.shape == (3, 3) and not np.array_equal(later, glider)
+    assert any(np.array_equal(later, img) for img in (glider[::-1], glider[:, ::-1], glider.T,
+                                                       np.rot90(glider, 2).T))
+    for name in ("2d-n3-m2", "2d-n4-m2"):
+        try:
+            t = load(name)
+        except FileNotFoundError:
+            continue
+        assert t.count(glider) > 0
+        assert t.ctm(glider) == t.ctm(later)
+
+
+def test_2d_cap_over_the_grid_limit_is_refused():
+    from ctmtab.errors import SpaceError
+    with pytest.raises(SpaceError, match="2D cap"):
+        build(Space(2, 2, 2), 5000)
+
+
+def test_2d_build_and_export_from_the_command_line(tmp_path):
+    import subprocess
+    import sys
+    out = tmp_path / "t.ctmt"
+    r = subprocess.run([sys.executable, "-m", "ctmtab", "build", "--dims", "2", "--states", "2",
+                        "--max-steps", "20", "-o", str(out), "-q"], capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    r = subprocess.run([sys.executable, "-m", "ctmtab", "export", str(out)], capture_output=True, text=True)
+    rows = dict(line.split(",") for line in r.stdout.splitlines()[1:])
+    assert "0/1" in rows and "01" in rows  # a column and a row: rows north to south, joined by /
+    assert all(len({len(part) for part in k.split("/")}) == 1 for k in rows)
+    r = subprocess.run([sys.executable, "-m", "ctmtab", "build", "--dims", "2", "--states", "2", "-o",
+                        str(tmp_path / "x.ctmt")], capture_output=True, text=True)
+    assert r.returncode == 2 and "give --max-steps" in r.stderr
