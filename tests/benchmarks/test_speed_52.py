@@ -29,3 +29,10 @@ def test_52_larger_caps(benchmark, cap):
                                 steps=t.steps, distinct=t.distinct(), halting_nodes=t.halting_nodes)
     print(f"\ncap {cap}: undecided {t.undecided} ({t.undecided / t.space.size:.4%}), "
           f"{t.distinct()} strings, {t.halting_nodes} halting nodes, {t.seconds:.1f} s")
+
+
+@pytest.mark.parametrize("n", [3, 4])
+def test_2d_cap_2000(benchmark, n):
+    t = benchmark.pedantic(build, args=(Space(2, n, 2), 2000), kwargs={"workers": 2}, rounds=1, iterations=1)
+    benchmark.extra_info.update(undecided_fraction=t.undecided / t.space.size, distinct=t.distinct(),
+                                steps=t.steps, longest_run=t.longest_run)
