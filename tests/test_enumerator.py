@@ -136,3 +136,35 @@ def test_two_state_distribution_matches_published_values():
     assert 0.328 <= p[b"\x00"] < 0.329
     assert 0.0834 <= p[b"\x00\x00"] < 0.0835
     assert 0.00098 <= p[b"\x00\x00\x01"] < 0.00099
+
+
+def test_outputs_beyond_64_bit_codes_stay_exact_end_to_end():
+    # (2,4) at cap 3000 produces outputs of dozens of cells; base-4 codes overflow 64 bits past
+    # 32 cells, so those keys travel as symbol rows: counts must survive the file exactly
+    from ctmtab.tables import Table, loads, problems
+    t = build(Space(1, 2, 4), 3000, workers=2)
+    long = {s: g for s, g in t.groups.items() if s[0] > 32}
+    assert long, "expected outputs longer than 32 cells"
+    table = loads(Table.from_tally(t).to_bytes())
+    for shape, group in long.items():
+        assert table.groups[shape].symbols is not None
+        for key, c in group.items():
+            assert table.count(key) == c and table.count(key[::-1]) == c
+    assert problems(table) == []
+
+
+def test_shipped_five_state_table_matches_the_published_one():
+    # Soler-Toscano, Zenil, Delahaye & Gauvrit, PLoS ONE 9(5):e96223 (2014): every binary string
+    # of length <= 11 is produced (verified, abstract); 99,608 distinct strings and
+    # CTM("0") ~ 2.51 bits (memory). arXiv:2509.12337 (verified): 48,379,894 halting nodes without
+    # a cap, and a cap of 500 finds slightly fewer (by less than 0.01%).
+    from ctmtab.tables import load, problems
+    t = load("1d-n5-m2-t500")
+    assert t.space == Space(1, 5, 2) and t.cap == 500
+    assert all(len(t.groups[(k,)]) == 2**k for k in range(1, 12))
+    assert t.distinct == 99_608
+    assert round(t.ctm("0"), 2) == 2.51
+    nodes = t.header["stats"]["halting_nodes"]
+    assert 0 < 48_379_894 - nodes < 48_379_894 // 10_000
+    assert t.halting + t.non_halting + t.undecided == Space(1, 5, 2).size  # OEIS A141475, n = 5
+    assert problems(t) == []
