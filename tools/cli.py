@@ -79,6 +79,24 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--format", choices=("csv", "json"), default="csv")
     p.add_argument("-o", "--output", help="file to write; default stdout")
 
+    p = sub.add_parser("validate", help="compare an estimator with the exact CTM of every key")
+    p.add_argument("table")
+    src = p.add_mutually_exclusive_group(required=True)
+    src.add_argument("--estimator", metavar="SPEC",
+                     help="zlib, lzma, bz2, entropy, or module:function taking a key text")
+    src.add_argument("--values", metavar="FILE.csv", help="key,value rows")
+    p.add_argument("--sizes", help="lengths (1D) or RxC shapes (2D): 5-11 or 3x3,4x4; default all")
+    p.add_argument("--worst", type=int, default=10, help="disagreements to list; default 10")
+    p.add_argument("--plot", metavar="FILE.png", help="scatter and per-size correlation")
+    p.add_argument("--json", action="store_true")
+
+    p = sub.add_parser("plot", help="PNG figures of a table: CTM by rank, halting times, mass by size")
+    p.add_argument("table")
+    p.add_argument("-o", "--output-dir", default=".", help="folder for the PNG files; default here")
+
+    p = sub.add_parser("demo", help="a worked validation demo in an invented setting")
+    p.add_argument("-o", "--output-dir", default="ctmtab-demo", help="folder for its figures")
+
     p = sub.add_parser("run", help="run one machine given in the compact notation (1RB1LB_1LA1RZ)")
     p.add_argument("machine")
     p.add_argument("--max-steps", type=int, default=10**9, help="default 10^9")
@@ -250,7 +268,68 @@ def cmd_run(a) -> int:
     return 0
 
 
-COMMANDS = {"build": cmd_build, "info": cmd_info, "lookup": cmd_lookup, "verify": cmd_verify,
+def _sizes(text):
+    if not text:
+        return None
+    out = []
+    for part in text.split(","):
+        part = part.strip()
+        try:
+            if "x" in part:
+                out.append(tuple(int(v) for v in part.split("x")))
+            elif "-" in part:
+                lo, hi = (int(v) for v in part.split("-"))
+                out += list(range(lo, hi + 1))
+            else:
+                out.append(int(part))
+        except ValueError:
+            raise CtmtabError(f"--sizes {text!r}: {part!r} is not a length, a range like 5-11 or a shape like 3x3") from None
+    return out
+
+
+def cmd_validate(a) -> int:
+    from ..tables import load
+    from .validate import resolve, validate, values_from_csv
+
+    t = load(a.table)
+    est = resolve(a.estimator) if a.estimator else None
+    vals = values_from_csv(a.values) if a.values else None
+    rep = validate(t, est, vals, sizes=_sizes(a.sizes), worst=a.worst)
+    if a.plot:
+        from .plots import plot_report
+        plot_report(rep, a.plot, title=a.estimator or Path(a.values).name)
+    if a.json:
+        _emit(rep.to_dict(), True, "")
+        return 0
+    print(f"{rep.scored:,} of {rep.keys:,} keys scored ({rep.coverage:.1%})")
+    print(f"Spearman {rep.spearman:+.4f}   Kendall {rep.kendall:+.4f}   "
+          f"mean absolute error after a linear fit {rep.mae_linear:.3f} bits")
+    print(f"{'size':>6} {'keys':>7} {'Spearman':>9} {'Kendall':>9}")
+    for s, r in rep.by_size.items():
+        print(f"{s:>6} {r['keys']:>7} {r['spearman']:>+9.3f} {r['kendall']:>+9.3f}")
+    print("worst disagreements (exact CTM vs the fitted estimate):")
+    for w in rep.worst:
+        print(f"  {w['key']:>16}  exact {w['exact']:8.3f}  fitted {w['fitted']:8.3f}")
+    return 0
+
+
+def cmd_plot(a) -> int:
+    from ..tables import load
+    from .plots import plot_table
+
+    for path in plot_table(load(a.table), a.output_dir):
+        print(path)
+    return 0
+
+
+def cmd_demo(a) -> int:
+    from .demo import run
+
+    run(a.output_dir)
+    return 0
+
+
+COMMANDS = {"validate": cmd_validate, "plot": cmd_plot, "demo": cmd_demo, "build": cmd_build, "info": cmd_info, "lookup": cmd_lookup, "verify": cmd_verify,
             "merge": cmd_merge, "export": cmd_export, "run": cmd_run}
 
 

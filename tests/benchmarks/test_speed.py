@@ -62,3 +62,21 @@ def test_dense_view_lookup(benchmark):
     out = benchmark(np.take, dense, codes)
     assert len(out) == len(codes)
     benchmark.extra_info["keys"] = len(codes)
+
+
+def test_bdm_1d_throughput(benchmark):
+    from ctmtab.tools.bdm import BDM
+    bdm = BDM(load("1d-n5-m2-t500"), 11)
+    x = np.random.default_rng(4).integers(0, 2, 11 * 1_000_000)
+    value = benchmark(bdm, x)
+    assert np.isfinite(value)
+    benchmark.extra_info["blocks"] = 1_000_000
+
+
+def test_bdm_2d_throughput(benchmark):
+    from ctmtab.tools.bdm import BDM
+    bdm = BDM(load("2d-n4-m2-t2000"), (3, 3))
+    x = np.random.default_rng(4).integers(0, 2, (3000, 3000))
+    value = benchmark(bdm, x)
+    assert np.isfinite(value)
+    benchmark.extra_info["blocks"] = 1_000_000

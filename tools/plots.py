@@ -1,0 +1,78 @@
+"""PNG figures of a table and of a validation report (matplotlib, no display needed)."""
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+
+
+def _plt():
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def plot_table(table, folder) -> list[Path]:
+    """CTM against rank, the halting-step histogram, and the mass by output size."""
+    plt = _plt()
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    label = f"{table.space.label}, cap {table.cap}"
+    out = []
+    ctm = np.sort(np.concatenate([math.log2(table.total) - np.log2(np.asarray(g.counts, dtype=float))
+                                  for g in table.groups.values()]))
+    fig, ax = plt.subplots(figsize=(6, 4))
+    ax.plot(np.arange(1, len(ctm) + 1), ctm, lw=1)
+    ax.set_xscale("log")
+    ax.set(xlabel="rank", ylabel="CTM (bits)", title=f"CTM by rank — {label}")
+    out.append(_save(fig, folder / "ctm-rank.png"))
+    fig, ax = plt.subplots(figsize=(6, 4))
+    steps = np.asarray(table.hist_steps, dtype=float)
+    nz = np.flatnonzero(steps)
+    ax.bar(nz, steps[nz] / table.halting, width=1.0)
+    ax.set_yscale("log")
+    ax.axvline(table.cap, color="red", ls="--", label=f"cap {table.cap}")
+    ax.set(xlabel="halting step", ylabel="fraction of halting machines", title=f"Halting times — {label}")
+    ax.legend()
+    out.append(_save(fig, folder / "halting-steps.png"))
+    fig, ax = plt.subplots(figsize=(6, 4))
+    sizes = np.asarray(table.hist_len, dtype=float)
+    nz = np.flatnonzero(sizes)
+    ax.bar(nz, sizes[nz] / table.halting)
+    ax.set_yscale("log")
+    ax.set(xlabel="output size (cells; longer side in 2D)", ylabel="probability mass",
+           title=f"Mass by output size — {label}")
+    out.append(_save(fig, folder / "mass-by-size.png"))
+    return out
+
+
+def plot_report(report, path, title: str = "") -> Path:
+    """Scatter of exact against estimated, and the rank correlation per size."""
+    plt = _plt()
+    exact, est = report.pairs
+    fig, (a, b) = plt.subplots(1, 2, figsize=(11, 4.5))
+    a.scatter(est, exact, s=6, alpha=0.4)
+    if len(est):
+        xs = np.linspace(np.min(est), np.max(est), 50)
+        a.plot(xs, report.slope * xs + report.intercept, color="red", lw=1, label="linear fit")
+        a.legend()
+    a.set(xlabel="estimate", ylabel="exact CTM (bits)",
+          title=f"{title} Spearman {report.spearman:.3f}, Kendall {report.kendall:.3f}")
+    names = list(report.by_size)
+    b.bar(range(len(names)), [report.by_size[n]["spearman"] for n in names])
+    b.set_xticks(range(len(names)), names, rotation=90 if len(names) > 12 else 0)
+    b.set(xlabel="key size", ylabel="Spearman", title="rank correlation per size", ylim=(-1, 1))
+    return _save(fig, Path(path))
+
+
+def _save(fig, path: Path) -> Path:
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    import matplotlib.pyplot as plt
+
+    plt.close(fig)
+    return path
