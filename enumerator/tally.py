@@ -132,6 +132,8 @@ class Tally:
     plan_ident: str = ""
     depth: int = 0
     shard: tuple | None = None
+    seconds: float = 0.0         # wall time of the build
+    resumed: int = 0             # units taken from the spool instead of computed
 
     def __post_init__(self):
         if self.weight is None:

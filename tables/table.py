@@ -150,7 +150,7 @@ class Table:
             "generator": {"name": "ctmtab", "version": __version__},
             "build": {
                 "command": command,
-                "seconds": round(getattr(tally, "seconds", 0.0), 3),
+                "seconds": round(tally.seconds, 3),
                 "created": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
                 "by": builder if builder is not None else _whoami(),
             },
@@ -379,7 +379,10 @@ class Table:
         return self.distinct
 
     def summary(self) -> dict:
-        ctms = [math.log2(self.total) - math.log2(float(c)) for g in self.groups.values() for c in g.counts]
+        # the rarest key has the largest CTM, the commonest the smallest
+        top = max((max(g.counts) for g in self.groups.values()), default=0)
+        low = min((min(g.counts) for g in self.groups.values()), default=0)
+        log_total = math.log2(self.total) if self.total else math.nan
         return {
             "space": self.space.to_dict(),
             "label": self.space.label,
@@ -394,8 +397,8 @@ class Table:
             "keys_by_shape": {"x".join(map(str, s)): len(self.groups[s]) for s in self.shapes},
             "complete_shapes": ["x".join(map(str, s)) for s in self.shapes
                                 if len(self.groups[s]) == self.space.symbols ** math.prod(s)],
-            "ctm_min": min(ctms, default=math.nan),
-            "ctm_max": max(ctms, default=math.nan),
+            "ctm_min": log_total - math.log2(int(top)) if top else math.nan,
+            "ctm_max": log_total - math.log2(int(low)) if low else math.nan,
             "stats": self.header.get("stats", {}),
             "deciders": self.header.get("deciders", []),
             "format": self.header.get("_format", [fmt.MAJOR, fmt.MINOR]),
