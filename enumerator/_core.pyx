@@ -45,6 +45,7 @@ cdef extern from "csrc/ctm_core.h" nogil:
         double probe_factor
     int ctm_unit_init(ctm_unit *u)
     int ctm_unit_run(ctm_unit *u)
+    int ctm_sample(ctm_unit *u, uint64_t count)
     void ctm_unit_free(ctm_unit *u)
     ctypedef struct ctm_run_result:
         int status
@@ -97,6 +98,43 @@ cdef _setup(ctm_unit *u, int dims, int n, int m, int64_t cap, unsigned deciders)
     u.cut_depth = -1
 
 
+cdef dict _result(ctm_unit *u, int64_t cap):
+    cdef size_t j
+    cdef int64_t i
+    raw = {}
+    for j in range(u.raw.cap):
+        if u.raw.hashes[j]:
+            raw[u.raw.arena[u.raw.offs[j]:u.raw.offs[j] + u.raw.lens[j]]] = _int(&u.raw.vals[j])
+    return dict(
+        raw=raw,
+        halting=_int(&u.halting),
+        non_halting=_int(&u.non_halting),
+        undecided=_int(&u.undecided),
+        hist_steps=[_int(&u.hist_steps[i]) for i in range(cap + 1)],
+        hist_len=[_int(&u.hist_len[i]) for i in range(cap + 2)],
+        halting_nodes=int(u.halting_nodes),
+        longest_run=int(u.longest_run),
+        most_nonblank=int(u.most_nonblank),
+        steps=int(u.steps),
+    )
+
+
+def sample_unit(int dims, int n, int m, int64_t cap, unsigned deciders, uint64_t seed, uint64_t count):
+    """Run `count` machines drawn uniformly from the full space with the stream of `seed`."""
+    cdef ctm_unit u
+    cdef int rc
+    _setup(&u, dims, n, m, cap, deciders)
+    u.probe_seed = seed if seed else 1
+    try:
+        _check(ctm_unit_init(&u))
+        with nogil:
+            rc = ctm_sample(&u, count)
+        _check(rc)
+        return _result(&u, cap)
+    finally:
+        ctm_unit_free(&u)
+
+
 def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), int cut_depth=-1):
     """Enumerate one work unit of the space (dims, n, m) under cap.
 
@@ -124,24 +162,9 @@ def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), 
         with nogil:
             rc = ctm_unit_run(&u)
         _check(rc)
-        raw = {}
-        for j in range(u.raw.cap):
-            if u.raw.hashes[j]:
-                raw[u.raw.arena[u.raw.offs[j]:u.raw.offs[j] + u.raw.lens[j]]] = _int(&u.raw.vals[j])
-        out = dict(
-            raw=raw,
-            halting=_int(&u.halting),
-            non_halting=_int(&u.non_halting),
-            undecided=_int(&u.undecided),
-            hist_steps=[_int(&u.hist_steps[i]) for i in range(cap + 1)],
-            hist_len=[_int(&u.hist_len[i]) for i in range(cap + 2)],
-            halting_nodes=int(u.halting_nodes),
-            longest_run=int(u.longest_run),
-            most_nonblank=int(u.most_nonblank),
-            steps=int(u.steps),
-            cuts=[(tuple(u.cuts[j * cut_depth + i] for i in range(cut_depth)), _int(&u.cut_weights[j]))
-                  for j in range(u.n_cuts)] if cut_depth >= 0 else [],
-        )
+        out = _result(&u, cap)
+        out["cuts"] = [(tuple(u.cuts[j * cut_depth + i] for i in range(cut_depth)), _int(&u.cut_weights[j]))
+                       for j in range(u.n_cuts)] if cut_depth >= 0 else []
         return out
     finally:
         ctm_unit_free(&u)

@@ -160,6 +160,54 @@ def build(
     return tally
 
 
+SAMPLE_UNIT = 25_000  # samples per work unit: the result never depends on the worker count
+
+
+def unit_seed(seed: int, index: int) -> int:
+    """An independent stream per unit (splitmix64 of the seed and the unit index)."""
+    mask = (1 << 64) - 1
+    z = (seed * 0x9E3779B97F4A7C15 + (index + 1) * 0xBF58476D1CE4E5B9) & mask
+    z = ((z ^ (z >> 30)) * 0x94D049BB133111EB) & mask
+    return (z ^ (z >> 31)) or 1
+
+
+def sample(space: Space, cap: int, samples: int, *, seed: int = 1, deciders=ALL_DECIDERS, workers: int = 1,
+           scheduler: str | None = None, on_progress=None) -> Tally:
+    """Run `samples` machines drawn uniformly from the full space (DESIGN.md section 4).
+    Reproducible from the seed, whatever the worker count."""
+    check_cap(cap)
+    if space.dims == 2 and cap > _core.MAX_CAP_2D:
+        raise SpaceError(f"a 2D cap of {cap} is over the limit of {_core.MAX_CAP_2D}; use a smaller --max-steps")
+    if space.entries > 64:
+        raise SpaceError(f"{space.label} has {space.entries} table entries, over the core's limit of 64")
+    if not isinstance(samples, int) or samples < 1:
+        raise SpaceError(f"--sample needs a positive number of machines, got {samples!r}")
+    if not isinstance(seed, int) or not 0 <= seed < 1 << 63:
+        raise SpaceError(f"--seed must be a whole number from 0 to 2^63 - 1, got {seed!r}")
+    t0 = time.perf_counter()
+    bits = decider_bits(deciders)
+    counts = [min(SAMPLE_UNIT, samples - i) for i in range(0, samples, SAMPLE_UNIT)]
+    tasks = [(space.dims, space.states, space.symbols, cap, bits, k, unit_seed(seed, k), c)
+             for k, c in enumerate(counts)]
+    if scheduler:
+        stream = executors.dask_cluster(tasks, scheduler, executors.run_sample_task)
+    elif workers > 1 and len(tasks) > 1:
+        stream = executors.local_pool(tasks, workers, executors.run_sample_task)
+    else:
+        stream = executors.inline(tasks, executors.run_sample_task)
+    part, done, steps = Partial(), 0, 0
+    for index, result in stream:
+        part.add(result)
+        done += 1
+        steps += result["steps"]
+        if on_progress:
+            on_progress(done, len(tasks), sum(counts[:0]) + part.halting + part.non_halting + part.undecided,
+                        samples, steps)
+    tally = Tally.from_sample(space, cap, part, samples, seed, deciders=tuple(deciders), units=len(tasks))
+    tally.seconds = time.perf_counter() - t0
+    return tally
+
+
 def run_unit(space: Space, cap: int, unit, deciders=ALL_DECIDERS) -> dict:
     """The raw result of one unit of a plan."""
     return _core.run_unit(space.dims, space.states, space.symbols, cap, decider_bits(deciders), unit.prefix, -1)

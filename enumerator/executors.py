@@ -16,14 +16,20 @@ def run_task(task: tuple) -> tuple:
     return index, _core.run_unit(dims, n, m, cap, bits, prefix, -1)
 
 
-def inline(tasks):
+def run_sample_task(task: tuple) -> tuple:
+    """One sampling unit: (dims, n, m, cap, bits, index, seed, count) -> (index, result)."""
+    dims, n, m, cap, bits, index, seed, count = task
+    return index, _core.sample_unit(dims, n, m, cap, bits, seed, count)
+
+
+def inline(tasks, fn=run_task):
     for task in tasks:
-        yield run_task(task)
+        yield fn(task)
 
 
-def local_pool(tasks, workers: int):
+def local_pool(tasks, workers: int, fn=run_task):
     with ProcessPoolExecutor(max_workers=workers) as pool:
-        futures = [pool.submit(run_task, t) for t in tasks]
+        futures = [pool.submit(fn, t) for t in tasks]
         try:
             for f in as_completed(futures):
                 yield f.result()
@@ -33,7 +39,7 @@ def local_pool(tasks, workers: int):
             raise
 
 
-def dask_cluster(tasks, address: str):
+def dask_cluster(tasks, address: str, fn=run_task):
     try:
         from distributed import Client, as_completed as dask_completed
     except ImportError:
@@ -44,7 +50,7 @@ def dask_cluster(tasks, address: str):
     except (OSError, TimeoutError) as exc:
         raise CtmtabError(f"cannot reach the Dask scheduler at {address} ({exc}); check the address") from None
     try:
-        futures = client.map(run_task, tasks, pure=False)
+        futures = client.map(fn, tasks, pure=False)
         for f in dask_completed(futures):
             yield f.result()
     finally:

@@ -134,6 +134,10 @@ class Tally:
     shard: tuple | None = None
     seconds: float = 0.0         # wall time of the build
     resumed: int = 0             # units taken from the spool instead of computed
+    mode: str = "exhaustive"     # or "sampled": totals and counts then count samples
+    samples: int = 0
+    seed: int = 0
+    moments: dict | None = None  # sampled: shape -> {key: sum over samples of (images equal to key)^2}
 
     def __post_init__(self):
         if self.weight is None:
@@ -153,6 +157,52 @@ class Tally:
 
     def distinct(self) -> int:
         return sum(len(g) for g in self.groups.values())
+
+    @property
+    def images(self) -> int:
+        """Keys each halting sample adds: its symmetry images times the blanks."""
+        return (2 if self.space.dims == 1 else 8) * self.space.symbols
+
+    @classmethod
+    def from_sample(cls, space: Space, cap: int, part: Partial, samples: int, seed: int, **extra) -> "Tally":
+        """Every image of a uniform sample is a uniform sample: each halting run adds all its
+        images. Keeps the first and second moments of the per-sample image counts, from which
+        the reader derives standard errors."""
+        sum1: dict = {}
+        sum2: dict = {}
+        perms = []
+        for b in range(space.symbols):
+            perm = np.arange(space.symbols, dtype=np.uint8)
+            perm[0], perm[b] = b, 0
+            perms.append(perm)
+        for key, n in part.raw.items():
+            if space.dims == 1:
+                out = np.frombuffer(key[1:], dtype=np.uint8)
+                shapes_imgs = [((len(out),), img) for img in (out, out[::-1])]
+            else:
+                rows, cols = key[1] | key[2] << 8, key[3] | key[4] << 8
+                grid = np.frombuffer(key[5:], dtype=np.uint8).reshape(1, rows, cols)
+                shapes_imgs = [(img.shape[1:], img[0]) for img in dihedral_images(grid, 2)]
+            seen: dict = {}
+            for shape, img in shapes_imgs:
+                for perm in perms:
+                    k = (shape, np.ascontiguousarray(perm[img]).tobytes())
+                    seen[k] = seen.get(k, 0) + 1
+            for k, x in seen.items():
+                sum1[k] = sum1.get(k, 0) + n * x
+                sum2[k] = sum2.get(k, 0) + n * x * x
+        groups: dict = {}
+        moments: dict = {}
+        for shape, k in sorted(sum1):
+            groups.setdefault(shape, {})[k] = sum1[(shape, k)]
+            moments.setdefault(shape, {})[k] = sum2[(shape, k)]
+        tally = cls(space=space, cap=cap, groups=groups, halting=part.halting, non_halting=part.non_halting,
+                    undecided=part.undecided, halting_nodes=0, steps_hist=_trim(part.hist_steps),
+                    length_hist=_trim(part.hist_len), longest_run=part.longest_run,
+                    most_nonblank=part.most_nonblank, steps=part.steps, mode="sampled", samples=samples,
+                    seed=seed, moments=moments, weight=samples, covered=None, **extra)
+        tally.check()
+        return tally
 
     @classmethod
     def from_partial(cls, space: Space, cap: int, part: Partial, **extra) -> "Tally":
@@ -198,19 +248,20 @@ class Tally:
                 f"halting + non-halting + undecided = {total}, not the weight of the covered "
                 f"units {self.weight}; this is a bug, please report it"
             )
-        if self.covered is None and self.weight != self.space.size:
+        if self.mode == "exhaustive" and self.covered is None and self.weight != self.space.size:
             raise InvariantError("a complete build does not cover the space size; this is a bug")
         if sum(self.steps_hist) != self.halting or sum(self.length_hist) != self.halting:
             raise InvariantError("a histogram does not sum to the halting weight; this is a bug")
-        if self.total_count != self.blanks * self.halting:
+        per_run = self.images if self.mode == "sampled" else self.blanks
+        if self.total_count != per_run * self.halting:
             raise InvariantError(
-                f"the expanded counts sum to {self.total_count}, not blanks x halting = "
-                f"{self.blanks * self.halting}; the symmetry expansion is inconsistent (a bug)"
+                f"the expanded counts sum to {self.total_count}, not {per_run} x halting = "
+                f"{per_run * self.halting}; the symmetry expansion is inconsistent (a bug)"
             )
         by_size: dict = {}
         for shape, group in self.groups.items():
             by_size[size_of(shape)] = by_size.get(size_of(shape), 0) + sum(group.values())
         for size, total in by_size.items():
             hist = self.length_hist[size] if size < len(self.length_hist) else 0
-            if total != self.blanks * hist:
+            if total != per_run * hist:
                 raise InvariantError(f"size {size}: counts disagree with the output-size histogram (a bug)")

@@ -119,10 +119,19 @@ def _build(header: dict, body: dict, where: str) -> Table:
             raise InconsistentTableError(f"{where}: shape {shape} has an unknown key kind")
         _need(bool(np.all(counts > 0)) if counts.dtype != object else all(c > 0 for c in counts),
               where, f"shape {shape} holds a zero count")
+        if header.get("mode") == "sampled":
+            g.moments = _counts(spec.get("moments"), n, where, f"the moments of shape {shape}")
         groups[shape] = g
     table = Table(header, groups, _hist(body.get("hist_steps"), where, "the step histogram"),
                   _hist(body.get("hist_len"), where, "the length histogram"), source=where)
     _need(header.get("keys") == table._key_summary(), where, "the header's key summary contradicts the body")
+    if table.mode == "sampled":
+        sample = header.get("sample")
+        _need(isinstance(sample, dict) and all(isinstance(sample.get(k), int) and sample[k] > 0
+                                               for k in ("size", "images_per_sample")),
+              where, "a sampled table without its sample size")
+        _need(table.total == sample["images_per_sample"] * table.halting, where,
+              "the counts do not sum to images_per_sample x the halting samples")
     if table.mode == "exhaustive":
         _need(table.total == table.blanks * table.halting, where,
               "the counts do not sum to blanks x the halting total in the header")

@@ -33,6 +33,7 @@ class Group:
     codes: np.ndarray | None   # uint64, sorted, when m^size fits 64 bits
     symbols: np.ndarray | None  # N x size uint8 otherwise, sorted
     counts: np.ndarray          # uint64, or object ints when wider
+    moments: np.ndarray | None = None  # sampled tables: per-key sums of squared image counts
 
     def __len__(self):
         return len(self.counts)
@@ -114,6 +115,9 @@ class Table:
             else:
                 order = np.lexsort(rows.T[::-1])
                 g = Group(shape, None, rows[order], counts[order])
+            if tally.moments is not None:
+                mom = np.asarray([tally.moments[shape][k] for k in keys], dtype=object)[order]
+                g.moments = mom.astype(np.uint64) if max(mom, default=0) < 1 << 64 else mom
             if max(g.counts, default=0) < 1 << 64:
                 g.counts = g.counts.astype(np.uint64)
             groups[shape] = g
@@ -123,7 +127,7 @@ class Table:
             "formalism": FORMALISM,
             "cap": tally.cap,
             "blanks": list(range(tally.space.symbols)),
-            "mode": "exhaustive",
+            "mode": tally.mode,
             "totals": {
                 "space_size": str(tally.space.size),
                 "halting": str(tally.halting),
@@ -156,6 +160,11 @@ class Table:
             },
             "notes": notes,
         }
+        if tally.mode == "sampled":
+            header["sample"] = {"size": tally.samples, "seed": tally.seed, "halting_samples": tally.halting,
+                                "images_per_sample": tally.images}
+            header["invariant"] = ("halting + non_halting + undecided = sample size (totals count samples); "
+                                   "counts sum to images_per_sample x halting")
         table = cls(header, groups, list(tally.steps_hist), list(tally.length_hist))
         header["keys"] = table._key_summary()
         return table
@@ -193,8 +202,11 @@ class Table:
                 keys = {"kind": "code64", "data": g.codes.astype("<u8").tobytes()}
             else:
                 keys = {"kind": "symbols", "data": np.ascontiguousarray(g.symbols).tobytes()}
-            out.append({"shape": list(shape), "n": len(g), "keys": keys,
-                        "counts": encode_counts([int(c) for c in g.counts])})
+            spec = {"shape": list(shape), "n": len(g), "keys": keys,
+                    "counts": encode_counts([int(c) for c in g.counts])}
+            if g.moments is not None:
+                spec["moments"] = encode_counts([int(c) for c in g.moments])
+            out.append(spec)
         return {
             "groups": out,
             "hist_steps": dict(encode_counts(self.hist_steps), n=len(self.hist_steps)),
@@ -291,12 +303,35 @@ class Table:
         return math.log2(self.total) - math.log2(c)
 
     def interval(self, key) -> tuple[float, float]:
-        """Certified CTM bounds for an unbounded runtime: the true count lies in
-        [c, c + U] and the true halting total in [H, H + U], U = undecided runs."""
+        """Exhaustive tables: certified CTM bounds for an unbounded runtime (the true count lies
+        in [c, c + U] and the true halting total in [H, H + U], U = undecided runs).
+        Sampled tables: an approximate 95% interval from the standard error (not certified)."""
+        if self.mode == "sampled":
+            p, se = self.probability(key), self.standard_error(key)
+            hi_p, lo_p = p + 1.96 * se, p - 1.96 * se
+            return (-math.log2(hi_p) if hi_p > 0 else math.inf, -math.log2(lo_p) if lo_p > 0 else math.inf)
         c, u, h = self.count(key), self.undecided_runs, self.total
         low = math.log2(h + u) - math.log2(c + u) if c + u else math.inf
         high = math.log2(h + u) - math.log2(c) if c else math.inf
         return low, high
+
+    def standard_error(self, key) -> float:
+        """Sampled tables: the standard error of the probability estimate (delta method for the
+        ratio of per-sample image counts). Exhaustive tables are exact: 0."""
+        if self.mode != "sampled":
+            return 0.0
+        shape, row = self._parse_key(key)
+        pos = int(self._position(shape, row[None, :])[0])
+        s1 = 0 if pos < 0 else int(self.groups[shape].counts[pos])
+        s2 = 0 if pos < 0 else int(self.groups[shape].moments[pos])
+        n = self.header["sample"]["size"]
+        k = self.header["sample"]["images_per_sample"]
+        h = self.halting
+        if h == 0:
+            return math.nan
+        p = s1 / (k * h)
+        var = (s2 - 2 * p * k * s1 + p * p * k * k * h) / n  # E[(X - pY)^2], Y = k per halting sample
+        return math.sqrt(max(var, 0.0) / n) / (k * h / n)
 
     def lookup(self, keys, missing: str = "nan") -> dict:
         """Vectorised lookups. keys: a list of keys, or an N x L (1D) / N x R x C (2D)
@@ -392,7 +427,9 @@ class Table:
             "halting": self.halting,
             "non_halting": self.non_halting,
             "undecided": self.undecided,
-            "undecided_fraction": self.undecided / self.space_size,
+            "undecided_fraction": self.undecided / (self.header["sample"]["size"] if self.mode == "sampled"
+                                                    else self.space_size),
+            "sample": self.header.get("sample"),
             "distinct_keys": self.distinct,
             "keys_by_shape": {"x".join(map(str, s)): len(self.groups[s]) for s in self.shapes},
             "complete_shapes": ["x".join(map(str, s)) for s in self.shapes
@@ -408,6 +445,11 @@ class Table:
         }
 
     def write_csv(self, out) -> None:
+        if self.mode == "sampled":  # sampled: the standard error of each probability too
+            out.write("key,count,probability,standard_error\n")
+            for k, c in self.items():
+                out.write(f"{k},{c},{c / self.total:.6g},{self.standard_error(k):.3g}\n")
+            return
         out.write("key,count\n")
         for k, c in self.items():
             out.write(f"{k},{c}\n")

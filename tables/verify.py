@@ -15,13 +15,18 @@ def problems(table: Table) -> list[str]:
     out = []
     t = table
     covered = t.header.get("units", {}).get("covered") == "all"
-    if covered and t.halting + t.non_halting + t.undecided != t.space_size:
+    per_run = t.blanks
+    if t.mode == "sampled":
+        per_run = t.header["sample"]["images_per_sample"]
+        if t.halting + t.non_halting + t.undecided != t.header["sample"]["size"]:
+            out.append("halting + non_halting + undecided samples do not add up to the sample size")
+    elif covered and t.halting + t.non_halting + t.undecided != t.space_size:
         out.append(f"halting + non_halting + undecided = {t.halting + t.non_halting + t.undecided}, "
                    f"not the space size {t.space_size}")
     if t.space_size != t.space.size:
         out.append(f"the recorded space size {t.space_size} is not {t.space.label}'s {t.space.size}")
-    if t.total != t.blanks * t.halting:
-        out.append(f"the counts sum to {t.total}, not blanks x halting = {t.blanks * t.halting}")
+    if t.total != per_run * t.halting:
+        out.append(f"the counts sum to {t.total}, not {per_run} x halting = {per_run * t.halting}")
     if sum(t.hist_steps) != t.halting:
         out.append("the halting-step histogram does not sum to the halting total")
     if sum(t.hist_len) != t.halting:
@@ -33,7 +38,7 @@ def problems(table: Table) -> list[str]:
         by_size[max(shape)] = by_size.get(max(shape), 0) + exact_sum(t.groups[shape].counts)
         out += [f"shape {shape}: {p}" for p in _closure(t, shape)]
     for size, total in sorted(by_size.items()):
-        if size >= len(t.hist_len) or total != t.blanks * t.hist_len[size]:
+        if size >= len(t.hist_len) or total != per_run * t.hist_len[size]:
             out.append(f"size {size}: the counts disagree with the output-size histogram")
     return out
 

@@ -47,6 +47,8 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--workers", type=int, default=None, help="local processes; default every core")
     p.add_argument("--scheduler", metavar="ADDRESS", help="run the units on a Dask cluster (tcp://host:8786)")
     p.add_argument("--shard", metavar="I/N", help="build only units I mod N into a shard file (merge them later)")
+    p.add_argument("--sample", type=int, metavar="N", help="run N machines drawn uniformly instead of all")
+    p.add_argument("--seed", type=int, default=1, help="seed of --sample; default 1")
     p.add_argument("--split-depth", type=int, default=None,
                    help="branch points above the work-unit cut; default from the space")
     p.add_argument("--budget-hours", type=float, default=24.0,
@@ -134,7 +136,7 @@ def cmd_build(a) -> int:
     deciders = {"all": ALL_DECIDERS, "none": ()}.get(a.deciders) or tuple(
         d.strip() for d in a.deciders.split(",") if d.strip())
     shard = _shard(a.shard)
-    stem = f"ctm-{space.dims}d-n{space.states}-m{space.symbols}-t{cap}"
+    stem = f"ctm-{space.dims}d-n{space.states}-m{space.symbols}-t{cap}" + (f"-s{a.seed}" if a.sample else "")
     output = a.output or (stem + (f"-shard{shard[0]}of{shard[1]}" if shard else "") + ".ctmt")
     if not Path(output).resolve().parent.is_dir():
         raise CtmtabError(f"cannot write {output}: its folder does not exist")
@@ -143,9 +145,16 @@ def cmd_build(a) -> int:
     t0 = time.perf_counter()
     bar = Bar(f"{space.label} cap {cap}", enabled=False if a.quiet else None)
     try:
-        tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, workers=workers,
-                      scheduler=a.scheduler, shard=shard, spool=spool, budget_hours=a.budget_hours,
-                      on_progress=bar)
+        if a.sample is not None:
+            if shard:
+                raise CtmtabError("--shard splits exhaustive builds; give sampled shards their own --seed instead")
+            from ..enumerator import sample
+            tally = sample(space, cap, a.sample, seed=a.seed, deciders=deciders, workers=workers,
+                           scheduler=a.scheduler, on_progress=bar)
+        else:
+            tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, workers=workers,
+                          scheduler=a.scheduler, shard=shard, spool=spool, budget_hours=a.budget_hours,
+                          on_progress=bar)
     finally:
         bar.close()
     command = "ctmtab " + " ".join(shlex.quote(x) for x in sys.argv[1:])
@@ -158,7 +167,8 @@ def cmd_build(a) -> int:
     if not a.quiet:
         part = f" shard {shard[0]}/{shard[1]}," if shard else ""
         again = f", {tally.resumed} units resumed from {spool}" if tally.resumed else ""
-        print(f"{space.label} cap {cap}:{part} {tally.weight:,} machines, {tally.distinct():,} outputs, "
+        what = "sampled machines" if a.sample else "machines"
+        print(f"{space.label} cap {cap}:{part} {tally.weight:,} {what}, {tally.distinct():,} outputs, "
               f"undecided {tally.undecided / tally.weight:.3%}, {time.perf_counter() - t0:.2f} s{again} -> {output}",
               file=sys.stderr)
     return 0
@@ -174,7 +184,8 @@ def cmd_info(a) -> int:
         return 0
     lines = [
         f"{t.source}",
-        f"  space      {s['label']} ({t.space.size:,} machines), cap {t.cap}, {s['mode']}",
+        f"  space      {s['label']} ({t.space.size:,} machines), cap {t.cap}, {s['mode']}"
+        + (f", {s['sample']['size']:,} samples, seed {s['sample']['seed']}" if s.get("sample") else ""),
         f"  halting    {t.halting:,}  non-halting {t.non_halting:,}  undecided {t.undecided:,} "
         f"({s['undecided_fraction']:.3%})",
         f"  keys       {s['distinct_keys']:,} distinct; complete up to size "
@@ -205,7 +216,8 @@ def cmd_lookup(a) -> int:
     if a.json:
         _emit(rows, True, "")
     else:
-        print(f"{'key':<20} {'count':>22} {'probability':>12} {'CTM bits':>10}  certified interval")
+        kind = "95% interval (sampled)" if t.mode == "sampled" else "certified interval"
+        print(f"{'key':<20} {'count':>22} {'probability':>12} {'CTM bits':>10}  {kind}")
         for r in rows:
             print(f"{r['key']:<20} {r['count']:>22,} {r['probability']:>12.6g} {r['ctm']:>10.4f}  "
                   f"[{r['ctm_low']:.4f}, {r['ctm_high']:.4f}]")

@@ -308,6 +308,38 @@ static int translated(ctm_unit *u, int side, int state, int64_t pos, int64_t rea
     return found;
 }
 
+/* A sampled machine halts: tally one run under its full symmetry class (every
+ * image of a uniform sample is itself a uniform sample), weight 1. */
+static int sample_halt(ctm_unit *u, const config *c, int e) {
+    int64_t cols = c->xhi - c->xlo + 1, rows = c->yhi - c->ylo + 1;
+    size_t hdr = u->dims == 2 ? 4 : 0;
+    size_t len = 1 + hdr + (size_t)(rows * cols);
+    int rc = grow(&u->scratch, &u->scratch_cap, len);
+    if (rc) return rc;
+    uint8_t *key = u->scratch;
+    key[0] = (uint8_t)(u->dims == 1 ? 1 : 2);
+    if (hdr) {
+        key[1] = (uint8_t)(rows & 0xff); key[2] = (uint8_t)(rows >> 8);
+        key[3] = (uint8_t)(cols & 0xff); key[4] = (uint8_t)(cols >> 8);
+    }
+    uint8_t *cells = key + 1 + hdr;
+    for (int64_t r = 0; r < rows; r++)
+        memcpy(cells + r * cols, u->tape + cell(u, c->xlo, c->ylo + r), (size_t)cols);
+    cells[(c->y - c->ylo) * cols + (c->x - c->xlo)] = u->wr[e];
+    int64_t nonblank = 0;
+    for (int64_t i = 0; i < rows * cols; i++) nonblank += cells[i] != 0;
+    rc = ctm_map_add(&u->raw, key, (uint32_t)len, 1);
+    if (rc) return rc;
+    int64_t size = cols > rows ? cols : rows;
+    u->halting += 1;
+    u->hist_steps[c->step + 1] += 1;
+    u->hist_len[size] += 1;
+    if (c->step + 1 > u->longest_run) u->longest_run = c->step + 1;
+    if (nonblank > u->most_nonblank) u->most_nonblank = nonblank;
+    set_touch(u, c);
+    return CTM_OK;
+}
+
 /* ---------------------------------------------------------------- the search, per dimension */
 
 #define DIM 1
@@ -316,6 +348,47 @@ static int translated(ctm_unit *u, int side, int state, int64_t pos, int64_t rea
 #define DIM 2
 #include "ctm_search.inc"
 #undef DIM
+
+/* Draw `count` machines uniformly from the full space (every entry uniform over
+ * its options) and run each from blank 0 with the deciders; the stream comes
+ * from probe_seed, so a unit's samples depend on its seed alone. */
+int ctm_sample(ctm_unit *u, uint64_t count) {
+    const int ndir = u->dims == 1 ? 2 : 4;
+    const uint64_t opts = (uint64_t)(ndir * u->n * u->m + u->m);
+    const unsigned dec = u->deciders;
+    config root = {0, 0, u->origin_x, u->origin_y, u->origin_x, u->origin_x,
+                   u->origin_y, u->origin_y, 0, 1};
+    root.head = cell(u, root.x, root.y);
+    u->probe_seed = 0; /* init seeded the stream from it; the runs are tallied, not probed */
+    for (uint64_t i = 0; i < count; i++) {
+        int halts = 0;
+        for (int e = 0; e < u->nent; e++) {
+            uint64_t o = next_rand(u) % opts;
+            if (o < (uint64_t)u->m) { /* HALT(write o) */
+                u->def[e] = 2; u->wr[e] = (uint8_t)o; u->mv[e] = -1; u->nx[e] = 0;
+                halts = 1;
+            } else {
+                o -= (uint64_t)u->m;
+                u->def[e] = 1;
+                u->wr[e] = (uint8_t)(o / (uint64_t)(ndir * u->n));
+                u->mv[e] = (int8_t)((o / (uint64_t)u->n) % (uint64_t)ndir);
+                u->nx[e] = (uint8_t)(o % (uint64_t)u->n);
+            }
+        }
+        u->ndef = u->nent;
+        u->sym = 0;
+        /* "fully defined, no HALT" is a proof only when the table really has no HALT */
+        u->deciders = halts ? (dec & ~CTM_DEC_FULL) : dec;
+        int rc = u->dims == 1 ? segment_1(u, root) : segment_2(u, root);
+        u->deciders = dec;
+        int64_t tw = u->t_xhi - u->t_xlo + 1;
+        for (int64_t y = u->t_ylo; y <= u->t_yhi; y++) memset(u->tape + cell(u, u->t_xlo, y), 0, (size_t)tw);
+        if (rc) return rc;
+    }
+    memset(u->def, 0, sizeof u->def);
+    u->ndef = 0;
+    return CTM_OK;
+}
 
 int ctm_unit_run(ctm_unit *u) {
     config root = {0, 0, u->origin_x, u->origin_y, u->origin_x, u->origin_x,

@@ -108,6 +108,7 @@ typedef struct {
 
 int ctm_unit_init(ctm_unit *u);   /* after the inputs are set */
 int ctm_unit_run(ctm_unit *u);
+int ctm_sample(ctm_unit *u, uint64_t count); /* uniform machines; seed in probe_seed */
 void ctm_unit_free(ctm_unit *u);
 
 /* ---- one machine, 1D ----
