@@ -229,20 +229,18 @@ static int record_cut(ctm_unit *u, const config *c) {
     return CTM_OK;
 }
 
-/* The m HALT(write) leaves of a branch point. Key: the symmetry class byte,
- * in 2D rows and cols (uint16 LE each), then the cells row-major with the head
- * cell written. */
-static int halt_leaves(ctm_unit *u, const config *c) {
-    const int m = u->m;
-    u->halting_nodes++;
-    ctm_count w = c->mult * u->pow_opts[u->nent - u->ndef - 1];
+/* Write the output key of configuration c into u->scratch: the symmetry class
+ * byte, in 2D rows and cols (uint16 LE each), then the cells row-major. Sets
+ * *len, the head cell's offset *at within the cells, and the non-blank count
+ * outside the head cell. */
+static int output_key(ctm_unit *u, const config *c, int cls, size_t *len, size_t *at, int64_t *nonblank) {
     int64_t cols = c->xhi - c->xlo + 1, rows = c->yhi - c->ylo + 1;
     size_t hdr = u->dims == 2 ? 4 : 0;
-    size_t len = 1 + hdr + (size_t)(rows * cols);
-    int rc = grow(&u->scratch, &u->scratch_cap, len);
+    *len = 1 + hdr + (size_t)(rows * cols);
+    int rc = grow(&u->scratch, &u->scratch_cap, *len);
     if (rc) return rc;
     uint8_t *key = u->scratch;
-    key[0] = (uint8_t)u->sym;
+    key[0] = (uint8_t)cls;
     if (hdr) {
         key[1] = (uint8_t)(rows & 0xff); key[2] = (uint8_t)(rows >> 8);
         key[3] = (uint8_t)(cols & 0xff); key[4] = (uint8_t)(cols >> 8);
@@ -250,22 +248,36 @@ static int halt_leaves(ctm_unit *u, const config *c) {
     uint8_t *cells = key + 1 + hdr;
     for (int64_t r = 0; r < rows; r++)
         memcpy(cells + r * cols, u->tape + cell(u, c->xlo, c->ylo + r), (size_t)cols);
-    size_t at = (size_t)((c->y - c->ylo) * cols + (c->x - c->xlo));
-    int64_t nonblank = 0;
-    for (int64_t i = 0; i < rows * cols; i++) nonblank += cells[i] != 0;
-    nonblank -= cells[at] != 0;
-    for (int s = 0; s < m; s++) {
-        cells[at] = (uint8_t)s;
-        rc = ctm_map_add(&u->raw, key, (uint32_t)len, w);
-        if (rc) return rc;
-    }
-    ctm_count total = w * (ctm_count)m * u->factor[u->sym];
-    int64_t size = cols > rows ? cols : rows;
+    *at = 1 + hdr + (size_t)((c->y - c->ylo) * cols + (c->x - c->xlo));
+    int64_t nb = 0;
+    for (int64_t i = 0; i < rows * cols; i++) nb += cells[i] != 0;
+    *nonblank = nb - (key[*at] != 0);
+    return CTM_OK;
+}
+
+static void tally_halt(ctm_unit *u, const config *c, ctm_count total, int64_t nonblank) {
+    int64_t cols = c->xhi - c->xlo + 1, rows = c->yhi - c->ylo + 1;
     u->halting += total;
     u->hist_steps[c->step + 1] += total;
-    u->hist_len[size] += total;
+    u->hist_len[cols > rows ? cols : rows] += total;
     if (c->step + 1 > u->longest_run) u->longest_run = c->step + 1;
-    if (nonblank + 1 > u->most_nonblank) u->most_nonblank = nonblank + 1;
+    if (nonblank > u->most_nonblank) u->most_nonblank = nonblank;
+}
+
+/* The m HALT(write) leaves of a branch point. */
+static int halt_leaves(ctm_unit *u, const config *c) {
+    size_t len, at;
+    int64_t nonblank;
+    u->halting_nodes++;
+    ctm_count w = c->mult * u->pow_opts[u->nent - u->ndef - 1];
+    int rc = output_key(u, c, u->sym, &len, &at, &nonblank);
+    if (rc) return rc;
+    for (int s = 0; s < u->m; s++) {
+        u->scratch[at] = (uint8_t)s;
+        rc = ctm_map_add(&u->raw, u->scratch, (uint32_t)len, w);
+        if (rc) return rc;
+    }
+    tally_halt(u, c, w * (ctm_count)u->m * u->factor[u->sym], nonblank + 1);
     return CTM_OK;
 }
 
@@ -311,31 +323,14 @@ static int translated(ctm_unit *u, int side, int state, int64_t pos, int64_t rea
 /* A sampled machine halts: tally one run under its full symmetry class (every
  * image of a uniform sample is itself a uniform sample), weight 1. */
 static int sample_halt(ctm_unit *u, const config *c, int e) {
-    int64_t cols = c->xhi - c->xlo + 1, rows = c->yhi - c->ylo + 1;
-    size_t hdr = u->dims == 2 ? 4 : 0;
-    size_t len = 1 + hdr + (size_t)(rows * cols);
-    int rc = grow(&u->scratch, &u->scratch_cap, len);
+    size_t len, at;
+    int64_t nonblank;
+    int rc = output_key(u, c, u->dims == 1 ? 1 : 2, &len, &at, &nonblank);
     if (rc) return rc;
-    uint8_t *key = u->scratch;
-    key[0] = (uint8_t)(u->dims == 1 ? 1 : 2);
-    if (hdr) {
-        key[1] = (uint8_t)(rows & 0xff); key[2] = (uint8_t)(rows >> 8);
-        key[3] = (uint8_t)(cols & 0xff); key[4] = (uint8_t)(cols >> 8);
-    }
-    uint8_t *cells = key + 1 + hdr;
-    for (int64_t r = 0; r < rows; r++)
-        memcpy(cells + r * cols, u->tape + cell(u, c->xlo, c->ylo + r), (size_t)cols);
-    cells[(c->y - c->ylo) * cols + (c->x - c->xlo)] = u->wr[e];
-    int64_t nonblank = 0;
-    for (int64_t i = 0; i < rows * cols; i++) nonblank += cells[i] != 0;
-    rc = ctm_map_add(&u->raw, key, (uint32_t)len, 1);
+    u->scratch[at] = u->wr[e];
+    rc = ctm_map_add(&u->raw, u->scratch, (uint32_t)len, 1);
     if (rc) return rc;
-    int64_t size = cols > rows ? cols : rows;
-    u->halting += 1;
-    u->hist_steps[c->step + 1] += 1;
-    u->hist_len[size] += 1;
-    if (c->step + 1 > u->longest_run) u->longest_run = c->step + 1;
-    if (nonblank > u->most_nonblank) u->most_nonblank = nonblank;
+    tally_halt(u, c, 1, nonblank + (u->wr[e] != 0));
     set_touch(u, c);
     return CTM_OK;
 }
