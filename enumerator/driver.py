@@ -201,8 +201,7 @@ def sample(space: Space, cap: int, samples: int, *, seed: int = 1, deciders=ALL_
         done += 1
         steps += result["steps"]
         if on_progress:
-            on_progress(done, len(tasks), sum(counts[:0]) + part.halting + part.non_halting + part.undecided,
-                        samples, steps)
+            on_progress(done, len(tasks), part.halting + part.non_halting + part.undecided, samples, steps)
     tally = Tally.from_sample(space, cap, part, samples, seed, deciders=tuple(deciders), units=len(tasks))
     tally.seconds = time.perf_counter() - t0
     return tally
