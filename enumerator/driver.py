@@ -43,11 +43,17 @@ class Estimate:
         return self.steps / STEPS_PER_SECOND + self.nodes / NODES_PER_SECOND
 
 
-def _prepare(space: Space, cap: int) -> None:
+def _check_run(space: Space, cap: int) -> None:
+    """Limits every run shares, exhaustive or sampled: the cap, the 2D grid, the table size."""
     check_cap(cap)
     if space.dims == 2 and cap > _core.MAX_CAP_2D:
         raise SpaceError(f"a 2D cap of {cap} is over the limit of {_core.MAX_CAP_2D} (the grid is "
                          "(2 cap + 3)^2 bytes per worker); use a smaller --max-steps")
+    space.check_entries()
+
+
+def _prepare(space: Space, cap: int) -> None:
+    _check_run(space, cap)
     space.check_countable()
 
 
@@ -58,11 +64,13 @@ def plan(space: Space, cap: int, depth: int | None = None, deciders=ALL_DECIDERS
     return make_plan(space, cap, depth, decider_bits(deciders), tuple(deciders))
 
 
-def estimate(space: Space, cap: int, deciders=ALL_DECIDERS, walks: int = 20_000, seed: int = 1) -> Estimate:
+def estimate(space: Space, cap: int, deciders=ALL_DECIDERS, walks: int = 20_000, seed: int = 1,
+             at: Plan | None = None) -> Estimate:
     """Cost of an exhaustive build: the top of the tree exactly, then Knuth's
     random-walk estimate (Math. Comp. 29, 1975) inside every unit, which keeps
-    the variance far below that of walks from the root."""
-    p = plan(space, cap, None, deciders)
+    the variance far below that of walks from the root. `at`: a plan at the
+    default depth already made, so it is not made twice."""
+    p = at if at is not None else plan(space, cap, None, deciders)
     bits = decider_bits(deciders)
     per_unit = max(4, walks // max(1, len(p.units)))
     nodes, steps = float(p.top["halting_nodes"]), float(p.top["steps"])
@@ -101,8 +109,12 @@ def build(
             raise SpaceError(f"shard {i}/{n} does not exist; use I/N with 0 <= I < N")
     if workers < 1:
         raise SpaceError(f"--workers must be 1 or more, got {workers}")
+    t0 = time.perf_counter()
+    # The default-depth plan is cheap and serves the estimate too; another depth (0 runs the
+    # whole tree as its top) is planned only after the estimate has let the build through.
+    p = plan(space, cap, None, deciders) if split_depth in (None, default_depth(space)) else None
     if budget_hours is not None:
-        est = estimate(space, cap, deciders)
+        est = estimate(space, cap, deciders, at=p)
         share = 1 if shard is None else shard[1]
         if est.seconds / share > budget_hours * 3600:
             raise TooLargeError(
@@ -110,8 +122,8 @@ def build(
                 f"{est.seconds / share / 3600:,.0f} CPU-hours, over the budget of {budget_hours:g}; "
                 "lower --max-steps, use fewer states or symbols, split it with --shard, or raise --budget-hours"
             )
-    t0 = time.perf_counter()
-    p = plan(space, cap, split_depth, deciders)
+    if p is None:
+        p = plan(space, cap, split_depth, deciders)
     chosen = p.select(shard)
     store = Spool(spool, p) if spool else None
     results = store.finished(chosen) if store else {}
@@ -140,13 +152,7 @@ def build(
     bits = decider_bits(deciders)
     tasks = [(space.dims, space.states, space.symbols, cap, bits, k, p.unit(k).prefix)
              for k in chosen if k != 0 and k not in results]
-    if scheduler:
-        stream = executors.dask_cluster(tasks, scheduler)
-    elif workers > 1 and len(tasks) > 1:
-        stream = executors.local_pool(tasks, workers)
-    else:
-        stream = executors.inline(tasks)
-    for index, result in stream:
+    for index, result in executors.stream(tasks, workers, scheduler):
         if store:
             store.save(index, result)
         accept(index, result)
@@ -175,11 +181,7 @@ def sample(space: Space, cap: int, samples: int, *, seed: int = 1, deciders=ALL_
            scheduler: str | None = None, on_progress=None) -> Tally:
     """Run `samples` machines drawn uniformly from the full space (DESIGN.md section 4).
     Reproducible from the seed, whatever the worker count."""
-    check_cap(cap)
-    if space.dims == 2 and cap > _core.MAX_CAP_2D:
-        raise SpaceError(f"a 2D cap of {cap} is over the limit of {_core.MAX_CAP_2D}; use a smaller --max-steps")
-    if space.entries > 64:
-        raise SpaceError(f"{space.label} has {space.entries} table entries, over the core's limit of 64")
+    _check_run(space, cap)
     if not isinstance(samples, int) or samples < 1:
         raise SpaceError(f"--sample needs a positive number of machines, got {samples!r}")
     if not isinstance(seed, int) or not 0 <= seed < 1 << 63:
@@ -189,14 +191,8 @@ def sample(space: Space, cap: int, samples: int, *, seed: int = 1, deciders=ALL_
     counts = [min(SAMPLE_UNIT, samples - i) for i in range(0, samples, SAMPLE_UNIT)]
     tasks = [(space.dims, space.states, space.symbols, cap, bits, k, unit_seed(seed, k), c)
              for k, c in enumerate(counts)]
-    if scheduler:
-        stream = executors.dask_cluster(tasks, scheduler, executors.run_sample_task)
-    elif workers > 1 and len(tasks) > 1:
-        stream = executors.local_pool(tasks, workers, executors.run_sample_task)
-    else:
-        stream = executors.inline(tasks, executors.run_sample_task)
     part, done, steps = Partial(), 0, 0
-    for index, result in stream:
+    for index, result in executors.stream(tasks, workers, scheduler, executors.run_sample_task):
         part.add(result)
         done += 1
         steps += result["steps"]

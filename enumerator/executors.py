@@ -22,6 +22,15 @@ def run_sample_task(task: tuple) -> tuple:
     return index, _core.sample_unit(dims, n, m, cap, bits, seed, count)
 
 
+def stream(tasks, workers: int = 1, scheduler: str | None = None, fn=run_task):
+    """(index, result) pairs from a Dask cluster, a local pool, or this process."""
+    if scheduler:
+        return dask_cluster(tasks, scheduler, fn)
+    if workers > 1 and len(tasks) > 1:
+        return local_pool(tasks, workers, fn)
+    return inline(tasks, fn)
+
+
 def inline(tasks, fn=run_task):
     for task in tasks:
         yield fn(task)

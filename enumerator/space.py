@@ -61,13 +61,17 @@ class Space:
     def to_dict(self) -> dict:
         return {"dims": self.dims, "states": self.states, "symbols": self.symbols}
 
-    def check_countable(self) -> None:
-        """Refuse a space whose exact counts would not fit the core's 128 bits."""
+    def check_entries(self) -> None:
+        """Refuse a transition table larger than the core holds."""
         if self.entries > MAX_ENTRIES:
             raise TooLargeError(
                 f"{self.label} has {self.entries} table entries, over the core's limit of "
-                f"{MAX_ENTRIES}; use fewer states or symbols, or --sample"
+                f"{MAX_ENTRIES}; use fewer states or symbols"
             )
+
+    def check_countable(self) -> None:
+        """Refuse a space whose exact counts would not fit the core's 128 bits."""
+        self.check_entries()
         if (self.size * 8 * self.symbols).bit_length() > COUNT_BITS:
             raise TooLargeError(
                 f"{self.label} holds {self.size:.3e} machines, too many for exact 128-bit "

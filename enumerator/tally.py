@@ -70,6 +70,16 @@ def dihedral_images(grids: np.ndarray, cls: int) -> list[np.ndarray]:
     return rots + [np.rot90(flipped, k, axes=(1, 2)) for k in range(4)]
 
 
+def blank_perms(m: int) -> list[np.ndarray]:
+    """The transpositions (0 b), b = 0..m-1, as symbol maps (b = 0 is the identity)."""
+    perms = []
+    for b in range(m):
+        perm = np.arange(m, dtype=np.uint8)
+        perm[0], perm[b] = b, 0
+        perms.append(perm)
+    return perms
+
+
 def _expand_2d(raw: dict, m: int) -> dict:
     """flag, rows, cols, cells -> {image bytes (with its shape): count}, blank swaps included."""
     by_class: dict = {}
@@ -77,11 +87,7 @@ def _expand_2d(raw: dict, m: int) -> dict:
         rows, cols = key[1] | key[2] << 8, key[3] | key[4] << 8
         by_class.setdefault((key[0], rows, cols), []).append((key[5:], w))
     flat: dict = {}
-    perms = []
-    for b in range(m):
-        perm = np.arange(m, dtype=np.uint8)
-        perm[0], perm[b] = b, 0
-        perms.append(perm)
+    perms = blank_perms(m)
     for (cls, rows, cols), items in by_class.items():
         grids = np.frombuffer(b"".join(k for k, _ in items), dtype=np.uint8).reshape(len(items), rows, cols)
         weights = [w for _, w in items]
@@ -96,13 +102,9 @@ def _expand_2d(raw: dict, m: int) -> dict:
 
 
 def blank_swaps(m: int) -> list[bytes]:
-    """Translation tables of the transpositions (0 b), b = 0..m-1 (b = 0 is the identity)."""
-    tables = []
-    for b in range(m):
-        perm = list(range(256))
-        perm[0], perm[b] = b, 0
-        tables.append(bytes(perm))
-    return tables
+    """The same transpositions as bytes.translate tables."""
+    rest = bytes(range(m, 256))
+    return [perm.tobytes() + rest for perm in blank_perms(m)]
 
 
 @dataclass
@@ -170,11 +172,7 @@ class Tally:
         the reader derives standard errors."""
         sum1: dict = {}
         sum2: dict = {}
-        perms = []
-        for b in range(space.symbols):
-            perm = np.arange(space.symbols, dtype=np.uint8)
-            perm[0], perm[b] = b, 0
-            perms.append(perm)
+        perms = blank_perms(space.symbols)
         for key, n in part.raw.items():
             if space.dims == 1:
                 out = np.frombuffer(key[1:], dtype=np.uint8)

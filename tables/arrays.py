@@ -54,10 +54,6 @@ def fits_code64(m: int, length: int) -> bool:
     return m**length <= 1 << 64
 
 
-def powers(m: int, length: int) -> np.ndarray:
-    return np.array([m ** (length - 1 - j) for j in range(length)], dtype=np.uint64)
-
-
 def codes_of(symbols: np.ndarray, m: int) -> np.ndarray:
     """Rows of symbols (N x L) -> uint64 base-m codes."""
     symbols = np.asarray(symbols)

@@ -10,7 +10,7 @@ import numpy as np
 
 from ..errors import InconsistentTableError, TableError
 from . import format as fmt
-from .arrays import U64, decode_counts, exact_sum
+from .arrays import U64, decode_counts
 from .table import SHIPPED, Group, Table
 
 SUFFIX = ".ctmt"

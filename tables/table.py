@@ -5,7 +5,6 @@ from __future__ import annotations
 import datetime
 import getpass
 import math
-import os
 import socket
 from dataclasses import dataclass
 from pathlib import Path
@@ -14,10 +13,9 @@ import numpy as np
 
 from .._version import __version__
 from ..enumerator.space import Space
-from ..errors import InconsistentTableError, MergeError, MissingKeyError, SpaceError, TableError
+from ..errors import InconsistentTableError, MissingKeyError, SpaceError, TableError
 from . import format as fmt
-from .arrays import (codes_of, decode_counts, encode_counts, exact_sum, fits_code64, powers,
-                     symbols_of)
+from .arrays import codes_of, encode_counts, exact_sum, fits_code64, symbols_of
 
 FORMALISM = "busy-beaver: entries MOVE(write, direction, next) or HALT(write); every transition is a step"
 MISSING_POLICIES = ("raise", "nan", "fallback")
@@ -269,10 +267,14 @@ class Table:
             index = self._index[shape] = {r.tobytes(): i for i, r in enumerate(g.symbols)}
         return np.array([index.get(r.tobytes(), -1) for r in rows], dtype=np.int64)
 
+    def _find(self, key) -> tuple[tuple, int]:
+        """(shape, index in its group) of one key; index -1 where absent."""
+        shape, row = self._parse_key(key)
+        return shape, int(self._position(shape, row[None, :])[0])
+
     def count(self, key) -> int:
         """Exact count of runs (machine, blank) with this output; 0 if never produced."""
-        shape, row = self._parse_key(key)
-        pos = int(self._position(shape, row[None, :])[0])
+        shape, pos = self._find(key)
         return 0 if pos < 0 else int(self.groups[shape].counts[pos])
 
     def probability(self, key) -> float:
@@ -320,8 +322,7 @@ class Table:
         ratio of per-sample image counts). Exhaustive tables are exact: 0."""
         if self.mode != "sampled":
             return 0.0
-        shape, row = self._parse_key(key)
-        pos = int(self._position(shape, row[None, :])[0])
+        shape, pos = self._find(key)
         s1 = 0 if pos < 0 else int(self.groups[shape].counts[pos])
         s2 = 0 if pos < 0 else int(self.groups[shape].moments[pos])
         n = self.header["sample"]["size"]

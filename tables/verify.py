@@ -1,11 +1,9 @@
 """Everything a collaborator can check in a table beyond its checksums."""
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
-from ..enumerator.tally import dihedral_images
+from ..enumerator.tally import blank_perms, dihedral_images
 from .arrays import exact_sum
 from .table import Table
 
@@ -53,9 +51,7 @@ def _images(table: Table, shape: tuple, rows: np.ndarray):
         names = ["rotation 90", "rotation 180", "rotation 270", "flip", "flip+90", "flip+180", "flip+270"]
         for name, img in zip(names, dihedral_images(grids, 2)[1:]):
             yield name, tuple(img.shape[1:]), img.reshape(len(rows), -1)
-    for b in range(1, m):
-        perm = np.arange(m, dtype=np.uint8)
-        perm[0], perm[b] = b, 0
+    for b, perm in enumerate(blank_perms(m)[1:], start=1):
         yield f"blank swap (0 {b})", shape, perm[rows]
 
 

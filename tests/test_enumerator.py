@@ -1,6 +1,4 @@
 """The exhaustive 1D enumerator against published values and its own symmetries."""
-from itertools import product
-
 import pytest
 
 from ctmtab.enumerator import DECIDERS, Space, build

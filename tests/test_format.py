@@ -1,6 +1,4 @@
 """The table file: round trips, determinism, exactness, and every hostile file."""
-import warnings
-
 import msgpack
 import numpy as np
 import pytest

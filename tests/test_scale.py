@@ -8,7 +8,7 @@ import time
 
 import pytest
 
-from ctmtab.enumerator import ALL_DECIDERS, Space, build, plan
+from ctmtab.enumerator import Space, build, plan
 from ctmtab.errors import MergeError
 from ctmtab.tables import Table, load, merge
 from ctmtab.tools.progress import Bar

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import shlex
 import signal
 import sys
@@ -107,6 +106,11 @@ def _parser() -> argparse.ArgumentParser:
     return top
 
 
+def _command() -> str:
+    """The command line as given, for a table's provenance."""
+    return "ctmtab " + " ".join(shlex.quote(x) for x in sys.argv[1:])
+
+
 def _emit(obj, as_json: bool, text: str) -> None:
     print(json.dumps(obj, indent=2, default=str) if as_json else text)
 
@@ -157,8 +161,7 @@ def cmd_build(a) -> int:
                           on_progress=bar)
     finally:
         bar.close()
-    command = "ctmtab " + " ".join(shlex.quote(x) for x in sys.argv[1:])
-    table = Table.from_tally(tally, command=command, notes=a.notes, builder=a.builder)
+    table = Table.from_tally(tally, command=_command(), notes=a.notes, builder=a.builder)
     table.header["build"]["resumed_units"] = tally.resumed
     table.header["build"]["workers"] = "dask" if a.scheduler else workers
     table.save(output)
@@ -245,8 +248,7 @@ def cmd_verify(a) -> int:
 def cmd_merge(a) -> int:
     from ..tables import load, merge
 
-    command = "ctmtab " + " ".join(shlex.quote(x) for x in sys.argv[1:])
-    merge([load(p) for p in a.tables], command=command).save(a.output)
+    merge([load(p) for p in a.tables], command=_command()).save(a.output)
     return 0
 
 
