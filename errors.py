@@ -63,3 +63,7 @@ class MissingKeyError(CtmtabError, KeyError):
 
     def __str__(self):  # KeyError would print the repr of the message
         return str(self.args[0]) if self.args else ""
+
+
+class RareKeyWarning(UserWarning):
+    """A sampled table's key seen fewer than Table.min_seen times: its estimate is rough."""

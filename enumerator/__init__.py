@@ -1,6 +1,6 @@
 """The exhaustive enumerator: the C core, its binding and the Python driver."""
 from . import _core
-from .driver import ALL_DECIDERS, DECIDERS, Estimate, build, estimate, plan, run_unit, sample
+from .driver import ALL_DECIDERS, DECIDERS, Estimate, Target, build, estimate, plan, run_unit, sample
 from .units import Plan, Unit
 from .machine import Machine, Run, run
 from .space import Space
@@ -13,5 +13,5 @@ if _core.API_VERSION != 1:  # the compiled module must match this Python code
 
 __all__ = [
     "ALL_DECIDERS", "DECIDERS", "Estimate", "Machine", "Plan", "Run", "Space", "Tally", "Unit",
-    "build", "estimate", "plan", "run", "run_unit", "sample",
+    "Target", "build", "estimate", "plan", "run", "run_unit", "sample",
 ]

@@ -2,14 +2,17 @@
 hopeless requests, the executors, shards, resume, and the exact merge."""
 from __future__ import annotations
 
+import math
 import time
 from dataclasses import dataclass
+
+import numpy as np
 
 from ..errors import InvariantError, SpaceError, TooLargeError
 from . import _core, executors
 from .space import Space, check_cap
 from .spool import Spool
-from .tally import Partial, Tally
+from .tally import Partial, Tally, images_per_sample, sample_errors, sample_sums, size_of
 from .units import Plan, default_depth, make_plan, unit_weight_ok
 
 # Decider names and their bits in the C core. None of them may change a count.
@@ -169,37 +172,131 @@ def build(
 SAMPLE_UNIT = 25_000  # samples per work unit: the result never depends on the worker count
 
 
-def unit_seed(seed: int, index: int) -> int:
-    """An independent stream per unit (splitmix64 of the seed and the unit index)."""
+def _mix64(z: int) -> int:
+    """The splitmix64 output function: a bijection on 64-bit words."""
     mask = (1 << 64) - 1
-    z = (seed * 0x9E3779B97F4A7C15 + (index + 1) * 0xBF58476D1CE4E5B9) & mask
-    z = ((z ^ (z >> 30)) * 0x94D049BB133111EB) & mask
-    return (z ^ (z >> 31)) or 1
+    z = ((z ^ (z >> 30)) * 0xBF58476D1CE4E5B9) & mask
+    z = ((z ^ (z >> 27)) * 0x94D049BB133111EB) & mask
+    return z ^ (z >> 31)
 
 
-def sample(space: Space, cap: int, samples: int, *, seed: int = 1, deciders=ALL_DECIDERS, workers: int = 1,
-           scheduler: str | None = None, on_progress=None) -> Tally:
-    """Run `samples` machines drawn uniformly from the full space (DESIGN.md section 4).
-    Reproducible from the seed, whatever the worker count."""
+def unit_seed(seed: int, index: int) -> int:
+    """An independent stream per unit: mix(mix(seed) + (index + 1) * golden). The seed is mixed
+    on its own first, so no simple relation between two seeds makes their units coincide."""
+    return _mix64((_mix64(seed) + (index + 1) * 0x9E3779B97F4A7C15) & ((1 << 64) - 1)) or 1
+
+
+@dataclass(frozen=True)
+class Target:
+    """When a sampled build may stop before its sample count: every key of one size seen has a
+    relative standard error of at most `error`, or `seconds` of wall time have passed."""
+
+    error: float | None = None
+    size: int | None = None       # 1D length; 2D longer side
+    seconds: float | None = None
+
+    def __post_init__(self):
+        if self.error is not None and not (0 < self.error < 1 and self.size is not None and self.size >= 1):
+            raise SpaceError("an error target needs a bound between 0 and 1 and a key size >= 1, e.g. 5%@8")
+        if self.seconds is not None and not (0 < self.seconds < math.inf):
+            raise SpaceError("a time budget must be a finite time longer than 0 seconds, e.g. 30m")
+
+
+def worst_error(space: Space, part: Partial, size: int, prior: Tally | None = None) -> tuple[float, int]:
+    """The largest relative standard error among the keys of one size seen so far, and how
+    many keys of that size were seen (inf and 0 before the first). prior: a sampled tally the
+    new samples will be added to (--extend), counted in."""
+    sums = {shape: (dict(zip(keys, s1)), dict(zip(keys, s2)))
+            for shape, (keys, s1, s2) in sample_sums(space, part.raw, size=size).items()}
+    samples, halting = part.halting + part.non_halting + part.undecided, part.halting
+    if prior is not None:
+        samples, halting = samples + prior.samples, halting + prior.halting
+        for shape, group in prior.groups.items():
+            if size_of(shape) == size:
+                one, two = sums.setdefault(shape, ({}, {}))
+                for k, c in group.items():
+                    one[k] = one.get(k, 0) + c
+                    two[k] = two.get(k, 0) + prior.moments[shape][k]
+    images = images_per_sample(space)
+    worst, seen = math.inf if not sums else 0.0, 0
+    for one, two in sums.values():
+        s1 = np.fromiter(one.values(), dtype=np.float64, count=len(one))
+        s2 = np.fromiter((two[k] for k in one), dtype=np.float64, count=len(one))
+        rel = sample_errors(s1, s2, samples, images, halting) / (s1 / (images * halting))
+        worst, seen = max(worst, float(rel.max())), seen + len(s1)
+    return worst, seen
+
+
+def sample(space: Space, cap: int, samples: int | None, *, seed: int = 1, deciders=ALL_DECIDERS,
+           workers: int = 1, scheduler: str | None = None, until: Target | None = None,
+           prior: Tally | None = None, on_progress=None) -> Tally:
+    """Run machines drawn uniformly from the full space (DESIGN.md section 4): `samples` of them,
+    or fewer when `until` is met first. Reproducible from the seed, whatever the worker count:
+    the samples are always whole work units 0..K-1 of the seed's stream. prior: the sampled
+    tally these samples will extend, so that an error target counts its samples too."""
     _check_run(space, cap)
-    if not isinstance(samples, int) or samples < 1:
+    if samples is not None and (not isinstance(samples, int) or samples < 1):
         raise SpaceError(f"--sample needs a positive number of machines, got {samples!r}")
     if not isinstance(seed, int) or not 0 <= seed < 1 << 63:
         raise SpaceError(f"--seed must be a whole number from 0 to 2^63 - 1, got {seed!r}")
+    until = until or Target()
+    if samples is None and until.seconds is None:
+        raise SpaceError("a sampled build needs a ceiling: --sample N (the most machines to draw), "
+                         "a time budget such as --until 2h, or both")
     t0 = time.perf_counter()
+    deadline = None if until.seconds is None else t0 + until.seconds
     bits = decider_bits(deciders)
-    counts = [min(SAMPLE_UNIT, samples - i) for i in range(0, samples, SAMPLE_UNIT)]
-    tasks = [(space.dims, space.states, space.symbols, cap, bits, k, unit_seed(seed, k), c)
-             for k, c in enumerate(counts)]
-    part, done, steps = Partial(), 0, 0
-    for index, result in executors.stream(tasks, workers, scheduler, executors.run_sample_task):
-        part.add(result)
-        done += 1
-        steps += result["steps"]
-        if on_progress:
-            on_progress(done, len(tasks), part.halting + part.non_halting + part.undecided, samples, steps)
-    tally = Tally.from_sample(space, cap, part, samples, seed, deciders=tuple(deciders), units=len(tasks))
+    limit = math.inf if samples is None else -(-samples // SAMPLE_UNIT)  # units
+
+    def count_of(k: int) -> int:
+        return SAMPLE_UNIT if samples is None else min(SAMPLE_UNIT, samples - k * SAMPLE_UNIT)
+
+    part, done, steps, drawn = Partial(), 0, 0, 0
+    worst, stopped = math.nan, "count"
+    shown = "" if until.error is None else f"worst rel. error ? at size {until.size}"
+    with executors.Runner(workers if limit > 1 else 1, scheduler) as runner:
+        while done < limit:
+            # Rounds whose ends depend on the units done alone, so an error target stops every
+            # worker count at the same unit; a plain count runs as one round.
+            end = limit if until == Target() else min(limit, done + max(8, done // 8))
+            tasks = [(space.dims, space.states, space.symbols, cap, bits, k, unit_seed(seed, k), count_of(k))
+                     for k in range(done, end)]
+            finished, late, running = {}, False, drawn
+            results = runner.stream(tasks, executors.run_sample_task)
+            try:
+                for index, result in results:
+                    finished[index] = result
+                    steps += result["steps"]
+                    running += count_of(index)
+                    if on_progress:
+                        on_progress(done + len(finished), None if limit == math.inf else limit,
+                                    running, samples, steps, shown)
+                    if deadline is not None and time.perf_counter() > deadline:
+                        late = True
+                        break
+            finally:
+                results.close()
+            while done in finished:  # keep whole units 0..K-1 only: the table is --sample K x unit
+                part.add(finished.pop(done))
+                drawn += count_of(done)
+                done += 1
+            if until.error is not None:
+                worst, seen = worst_error(space, part, until.size, prior)
+                shown = f"worst rel. error {worst:.3g} over {seen:,} keys of size {until.size}"
+                if worst <= until.error:
+                    stopped = "target"
+                    break
+            if late:
+                stopped = "time"
+                break
+    if done == 0:
+        raise SpaceError(f"the time budget ran out before the first {SAMPLE_UNIT:,} samples finished; "
+                         "give --until more time")
+    tally = Tally.from_sample(space, cap, part, drawn, seed, deciders=tuple(deciders), units=done)
     tally.seconds = time.perf_counter() - t0
+    if until != Target():
+        tally.until = {"error": until.error, "size": until.size, "seconds": until.seconds,
+                       "stopped_by": stopped, "worst_relative_error": None if math.isnan(worst) else worst}
     return tally
 
 

@@ -24,46 +24,63 @@ def run_sample_task(task: tuple) -> tuple:
 
 def stream(tasks, workers: int = 1, scheduler: str | None = None, fn=run_task):
     """(index, result) pairs from a Dask cluster, a local pool, or this process."""
-    if scheduler:
-        return dask_cluster(tasks, scheduler, fn)
-    if workers > 1 and len(tasks) > 1:
-        return local_pool(tasks, workers, fn)
-    return inline(tasks, fn)
+    with Runner(workers if len(tasks) > 1 else 1, scheduler) as runner:
+        yield from runner.stream(tasks, fn)
 
 
-def inline(tasks, fn=run_task):
-    for task in tasks:
-        yield fn(task)
+class Runner:
+    """One place to run batches of tasks: this process, a local process pool or a Dask
+    cluster, kept open across batches (a sampled build runs in rounds)."""
 
+    def __init__(self, workers: int = 1, scheduler: str | None = None):
+        self.workers, self.scheduler = workers, scheduler
+        self.pool = self.client = None
 
-def local_pool(tasks, workers: int, fn=run_task):
-    with ProcessPoolExecutor(max_workers=workers) as pool:
-        futures = [pool.submit(fn, t) for t in tasks]
+    def __enter__(self):
+        if self.scheduler:
+            self.client = _dask_client(self.scheduler)
+        elif self.workers > 1:
+            self.pool = ProcessPoolExecutor(max_workers=self.workers)
+        return self
+
+    def __exit__(self, *exc):
+        if self.pool is not None:
+            self.pool.shutdown(wait=True, cancel_futures=True)
+        if self.client is not None:
+            self.client.close()
+
+    def stream(self, tasks, fn=run_task):
+        """(index, result) as tasks finish, in any order. Closing the stream early cancels the
+        tasks not yet started."""
+        if self.client is not None:
+            from distributed import as_completed as dask_completed
+            futures = self.client.map(fn, tasks, pure=False)
+            done = dask_completed(futures)
+        elif self.pool is not None:
+            futures = [self.pool.submit(fn, t) for t in tasks]
+            done = as_completed(futures)
+        else:
+            for task in tasks:
+                yield fn(task)
+            return
         try:
-            for f in as_completed(futures):
+            for f in done:
                 yield f.result()
-        except BaseException:
+        finally:
             for f in futures:
                 f.cancel()
-            raise
 
 
-def dask_cluster(tasks, address: str, fn=run_task):
+def _dask_client(address: str):
     try:
-        from distributed import Client, as_completed as dask_completed
+        from distributed import Client
     except ImportError:
         raise CtmtabError("--scheduler needs Dask: pip install 'ctmtab[cluster]'") from None
     _reachable(address)
     try:
-        client = Client(address, timeout="30s")
+        return Client(address, timeout="30s")
     except (OSError, TimeoutError) as exc:
         raise CtmtabError(f"cannot reach the Dask scheduler at {address} ({exc}); check the address") from None
-    try:
-        futures = client.map(fn, tasks, pure=False)
-        for f in dask_completed(futures):
-            yield f.result()
-    finally:
-        client.close()
 
 
 def _reachable(address: str) -> None:

@@ -1,11 +1,13 @@
 """The exact result of an enumeration, its symmetry expansion and its invariants."""
 from __future__ import annotations
 
+import functools
+import itertools
 from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..errors import InvariantError
+from ..errors import InvariantError, MergeError
 from .space import Space
 
 
@@ -107,6 +109,86 @@ def blank_swaps(m: int) -> list[bytes]:
     return [perm.tobytes() + rest for perm in blank_perms(m)]
 
 
+FULL_RELABELLING_MAX = 5  # sampled outputs take all m! symbol permutations up to m = 5 (120)
+
+
+def sample_perms(m: int) -> list[np.ndarray]:
+    """The symbol maps each sampled output is expanded by. Relabelling the non-blank symbols maps
+    the space onto itself and blank-0 runs onto blank-0 runs, and the transpositions (0 b) are the
+    blank symmetry, so every permutation of the m symbols leaves D unchanged. All m! of them up to
+    m = 5: a group, so the sampled table is exactly closed under each. Beyond, the m
+    transpositions only (the table is then closed under them in expectation, not exactly)."""
+    if m <= FULL_RELABELLING_MAX:
+        return [np.array(p, dtype=np.uint8) for p in itertools.permutations(range(m))]
+    return blank_perms(m)
+
+
+def images_per_sample(space: Space) -> int:
+    """Keys each halting sample adds: mirror (1D) or dihedral (2D) images times symbol maps."""
+    return (2 if space.dims == 1 else 8) * len(sample_perms(space.symbols))
+
+
+def sample_sums(space: Space, raw: dict, size: int | None = None) -> dict:
+    """Expand sampled outputs (flag byte + symbols -> samples) into every symmetry and blank
+    image: shape -> (keys, S1, S2), where S1 sums X and S2 sums X^2 over the samples, X being
+    how many of a sample's images equal the key. size: only outputs of that size (the images
+    of an output keep its size). Vectorised: one sort per output shape."""
+    m = space.symbols
+    by_shape: dict = {}
+    for key, n in raw.items():
+        if space.dims == 1:
+            shape, cells = (len(key) - 1,), key[1:]
+        else:
+            shape, cells = (key[1] | key[2] << 8, key[3] | key[4] << 8), key[5:]
+        if size is None or size_of(shape) == size:
+            bodies, ns = by_shape.setdefault(shape, ([], []))
+            bodies.append(cells)
+            ns.append(n)
+    perms = sample_perms(m)
+    images: dict = {}  # output shape -> [(rows, index of the sample's output)]
+    weights, offset = [], 0
+    for shape, (bodies, ns) in sorted(by_shape.items()):
+        k = len(bodies)
+        grids = np.frombuffer(b"".join(bodies), dtype=np.uint8).reshape(k, *shape)
+        imgs = [grids, grids[:, ::-1]] if space.dims == 1 else dihedral_images(grids, 2)
+        ids = np.arange(offset, offset + k, dtype=np.int64)
+        for img in imgs:
+            flat = img.reshape(k, -1)
+            for perm in perms:
+                images.setdefault(tuple(img.shape[1:]), []).append((perm[flat], ids))
+        weights += ns
+        offset += k
+    # exact integers: int64 while S2 cannot overflow it, Python ints beyond
+    wide = sum(weights) * images_per_sample(space) ** 2 >= 1 << 62
+    n_of = np.array(weights, dtype=object if wide else np.int64)
+    out = {}
+    for shape, parts in images.items():
+        rows = np.ascontiguousarray(np.concatenate([r for r, _ in parts]))
+        ids = np.concatenate([i for _, i in parts])
+        keys, key_id = np.unique(rows.view(np.dtype((np.void, rows.shape[1]))).ravel(), return_inverse=True)
+        pairs, x = np.unique(key_id.reshape(-1).astype(np.int64) * offset + ids, return_counts=True)
+        kid = pairs // offset
+        n = n_of[pairs % offset]
+        x = x.astype(object if wide else np.int64)
+        starts = np.flatnonzero(np.r_[True, kid[1:] != kid[:-1]])
+        s1 = np.add.reduceat(n * x, starts)
+        s2 = np.add.reduceat(n * x * x, starts)
+        out[shape] = ([bytes(k) for k in keys], [int(v) for v in s1], [int(v) for v in s2])
+    return out
+
+
+def sample_errors(s1, s2, samples: int, images: int, halting: int):
+    """Standard error of each probability estimate p = S1 / (k H) of a sampled table (delta
+    method for a ratio of two means over the N samples; Y = k for a halting sample, else 0):
+    Var(p) ~ E[(X - p Y)^2] / (N E[Y]^2). Works on scalars and numpy arrays."""
+    s1 = np.asarray(s1, dtype=np.float64)
+    s2 = np.asarray(s2, dtype=np.float64)
+    k, h, n = float(images), float(halting), float(samples)
+    p = s1 / (k * h)
+    var = (s2 - 2 * p * k * s1 + p * p * k * k * h) / n
+    return np.sqrt(np.maximum(var, 0.0) / n) / (k * h / n)
+
+
 @dataclass
 class Tally:
     """Exact counts of one exhaustive build.
@@ -140,6 +222,8 @@ class Tally:
     samples: int = 0
     seed: int = 0
     moments: dict | None = None  # sampled: shape -> {key: sum over samples of (images equal to key)^2}
+    streams: list | None = None  # sampled: (seed, size) of every stream the samples came from
+    until: dict | None = None    # sampled with a target: the target and what stopped the build
 
     def __post_init__(self):
         if self.weight is None:
@@ -162,38 +246,20 @@ class Tally:
 
     @property
     def images(self) -> int:
-        """Keys each halting sample adds: its symmetry images times the blanks."""
-        return (2 if self.space.dims == 1 else 8) * self.space.symbols
+        """Keys each halting sample adds (sampled tallies)."""
+        return images_per_sample(self.space)
 
     @classmethod
     def from_sample(cls, space: Space, cap: int, part: Partial, samples: int, seed: int, **extra) -> "Tally":
         """Every image of a uniform sample is a uniform sample: each halting run adds all its
         images. Keeps the first and second moments of the per-sample image counts, from which
         the reader derives standard errors."""
-        sum1: dict = {}
-        sum2: dict = {}
-        perms = blank_perms(space.symbols)
-        for key, n in part.raw.items():
-            if space.dims == 1:
-                out = np.frombuffer(key[1:], dtype=np.uint8)
-                shapes_imgs = [((len(out),), img) for img in (out, out[::-1])]
-            else:
-                rows, cols = key[1] | key[2] << 8, key[3] | key[4] << 8
-                grid = np.frombuffer(key[5:], dtype=np.uint8).reshape(1, rows, cols)
-                shapes_imgs = [(img.shape[1:], img[0]) for img in dihedral_images(grid, 2)]
-            seen: dict = {}
-            for shape, img in shapes_imgs:
-                for perm in perms:
-                    k = (shape, np.ascontiguousarray(perm[img]).tobytes())
-                    seen[k] = seen.get(k, 0) + 1
-            for k, x in seen.items():
-                sum1[k] = sum1.get(k, 0) + n * x
-                sum2[k] = sum2.get(k, 0) + n * x * x
         groups: dict = {}
         moments: dict = {}
-        for shape, k in sorted(sum1):
-            groups.setdefault(shape, {})[k] = sum1[(shape, k)]
-            moments.setdefault(shape, {})[k] = sum2[(shape, k)]
+        for shape, (keys, s1, s2) in sorted(sample_sums(space, part.raw).items()):
+            groups[shape] = dict(zip(keys, s1))
+            moments[shape] = dict(zip(keys, s2))
+        extra.setdefault("streams", [(seed, samples)])
         tally = cls(space=space, cap=cap, groups=groups, halting=part.halting, non_halting=part.non_halting,
                     undecided=part.undecided, halting_nodes=0, steps_hist=_trim(part.hist_steps),
                     length_hist=_trim(part.hist_len), longest_run=part.longest_run,
@@ -263,3 +329,50 @@ class Tally:
             hist = self.length_hist[size] if size < len(self.length_hist) else 0
             if total != per_run * hist:
                 raise InvariantError(f"size {size}: counts disagree with the output-size histogram (a bug)")
+
+
+def combine_samples(tallies: list, where: list | None = None) -> Tally:
+    """One sampled tally from sampled tallies of one space, cap and deciders whose streams are
+    disjoint: counts, moments, totals and histograms add exactly. Streams that share a seed
+    would count the same machines twice, so they are refused."""
+    where = where or [f"table {i + 1}" for i in range(len(tallies))]
+    first = tallies[0]
+    owner: dict = {}
+    for t, name in zip(tallies, where):
+        if t.mode != "sampled":
+            raise MergeError(f"{name} is an exhaustive table; only sampled tables combine with sampled ones")
+        if (t.space, t.cap, set(t.deciders)) != (first.space, first.cap, set(first.deciders)):
+            raise MergeError(f"{name} samples {t.space.label} at cap {t.cap} with deciders {list(t.deciders)}, "
+                             f"not {first.space.label} at cap {first.cap} with {list(first.deciders)}; "
+                             "only samples of one space, cap and decider set combine")
+        for seed, _ in t.streams:
+            if seed in owner:
+                also = "itself" if owner[seed] == name else owner[seed]
+                raise MergeError(f"{name} and {also} both hold samples of seed {seed}, which would count the "
+                                 "same machines twice; draw the extra samples under a new --seed")
+            owner[seed] = name
+    groups: dict = {}
+    moments: dict = {}
+    for t in tallies:
+        for target, source in ((groups, t.groups), (moments, t.moments)):
+            for shape, g in source.items():
+                dst = target.setdefault(shape, {})
+                for k, c in g.items():
+                    dst[k] = dst.get(k, 0) + c
+    streams = sorted(s for t in tallies for s in t.streams)
+    out = Tally(
+        space=first.space, cap=first.cap,
+        groups={s: dict(sorted(groups[s].items())) for s in sorted(groups)},
+        moments={s: dict(sorted(moments[s].items())) for s in sorted(moments)},
+        halting=sum(t.halting for t in tallies), non_halting=sum(t.non_halting for t in tallies),
+        undecided=sum(t.undecided for t in tallies), halting_nodes=0,
+        steps_hist=_trim(functools.reduce(_add_lists, (t.steps_hist for t in tallies), [])),
+        length_hist=_trim(functools.reduce(_add_lists, (t.length_hist for t in tallies), [])),
+        longest_run=max(t.longest_run for t in tallies), most_nonblank=max(t.most_nonblank for t in tallies),
+        steps=sum(t.steps for t in tallies), deciders=tuple(first.deciders),
+        units=sum(t.units for t in tallies), mode="sampled", samples=sum(n for _, n in streams),
+        seed=streams[0][0], streams=streams, weight=sum(n for _, n in streams),
+        seconds=sum(t.seconds for t in tallies),
+    )
+    out.check()
+    return out

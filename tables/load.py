@@ -130,6 +130,15 @@ def _build(header: dict, body: dict, where: str) -> Table:
         _need(isinstance(sample, dict) and all(isinstance(sample.get(k), int) and sample[k] > 0
                                                for k in ("size", "images_per_sample")),
               where, "a sampled table without its sample size")
+        streams = sample.get("streams", [[sample.get("seed"), sample["size"]]])  # 1.1 files: one stream
+        _need(isinstance(streams, list) and len(streams) >= 1
+              and all(isinstance(x, list) and len(x) == 2 and all(isinstance(v, int) for v in x)
+                      and 0 <= x[0] < 1 << 63 and x[1] > 0 for x in streams),
+              where, "the sample's streams are malformed")
+        _need(sum(x[1] for x in streams) == sample["size"], where, "the sample's streams do not add up to its size")
+        _need(len({x[0] for x in streams}) == len(streams), where, "the sample lists one seed twice")
+        _need(streams == sorted(streams) and sample.get("seed") == streams[0][0], where,
+              "the sample's streams are not sorted by seed, or its seed is not the first stream's")
         _need(table.total == sample["images_per_sample"] * table.halting, where,
               "the counts do not sum to images_per_sample x the halting samples")
     if table.mode == "exhaustive":

@@ -18,3 +18,7 @@ ctmtab build --states 5 --symbols 2 --max-steps 500 -o tables/1d-n5-m2-t500.ctmt
     --builder "ctmtab project" --notes "$(note "500, as in the published (5,2) table")" -q
 ctmtab build --dims 2 --states 4 --symbols 2 --max-steps 2000 -o tables/2d-n4-m2-t2000.ctmt \
     --builder "ctmtab project" --notes "$(note "2000, as in the published 2D (4,2) table")" -q
+# Sampled: 10^9 machines of the 1D (4,4) space (4 symbols, as for DNA), about 5 minutes on 2 cores.
+ctmtab build --states 4 --symbols 4 --max-steps 2000 --sample 1000000000 --seed 2026 \
+    -o tables/1d-n4-m4-t2000-sampled.ctmt --builder "ctmtab project" \
+    --notes "shipped with ctmtab; sampled, 10^9 uniform machines, cap 2000" -q

@@ -1,6 +1,7 @@
 """Exact merging of the shards of one build into one table."""
 from __future__ import annotations
 
+from ..enumerator.tally import combine_samples, images_per_sample
 from ..errors import MergeError
 from .table import Table
 
@@ -9,7 +10,8 @@ SAME = ("space", "cap", "mode", "formalism", "blanks", "deciders")
 
 def merge(tables: list[Table], *, command: str = "", builder: str | None = None) -> Table:
     """Sum shards of one build. Refuses tables of another space, cap or build,
-    a shard given twice, overlapping shards, and an incomplete set."""
+    a shard given twice, overlapping shards, and an incomplete set. Sampled
+    tables of one space, cap and decider set merge when their seeds differ."""
     if len(tables) < 2:
         raise MergeError("merge needs at least two tables")
     first = tables[0]
@@ -18,8 +20,8 @@ def merge(tables: list[Table], *, command: str = "", builder: str | None = None)
             if t.header.get(key) != first.header.get(key):
                 raise MergeError(f"{t.source} differs from {first.source} in {key} "
                                  f"({t.header.get(key)!r} vs {first.header.get(key)!r}); only one build's parts merge")
-    if first.mode != "exhaustive":
-        raise MergeError(f"{first.source}: merging {first.mode} tables is not supported yet")
+    if first.mode == "sampled":
+        return merge_samples(tables, command=command, builder=builder)
     units = [t.header.get("units", {}) for t in tables]
     for t, u in zip(tables, units):
         if u.get("covered") == "all":
@@ -63,4 +65,18 @@ def merge(tables: list[Table], *, command: str = "", builder: str | None = None)
     merged.seconds = sum(float(t.header.get("build", {}).get("seconds", 0)) for t in tables)
     merged.check()
     notes = "merged from " + ", ".join(str(t.source) for t in tables)
+    return Table.from_tally(merged, command=command, notes=notes, builder=builder)
+
+
+def merge_samples(tables: list[Table], *, command: str = "", builder: str | None = None,
+                  notes: str | None = None) -> Table:
+    """One sampled table from sampled tables drawn under different seeds: exact sums of the
+    counts, moments, totals and histograms. A seed in two tables is refused."""
+    for t in tables:
+        if t.mode == "sampled" and t.header["sample"]["images_per_sample"] != images_per_sample(t.space):
+            raise MergeError(f"{t.source} expanded each sample into {t.header['sample']['images_per_sample']} "
+                             f"images, this ctmtab into {images_per_sample(t.space)}; rebuild it with this version")
+    merged = combine_samples([t.to_tally() for t in tables], [str(t.source) for t in tables])
+    if notes is None:
+        notes = "merged from " + ", ".join(str(t.source) for t in tables)
     return Table.from_tally(merged, command=command, notes=notes, builder=builder)

@@ -6,6 +6,7 @@ import datetime
 import getpass
 import math
 import socket
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -13,12 +14,14 @@ import numpy as np
 
 from .._version import __version__
 from ..enumerator.space import Space
-from ..errors import InconsistentTableError, MissingKeyError, SpaceError, TableError
+from ..enumerator.tally import FULL_RELABELLING_MAX, sample_errors
+from ..errors import InconsistentTableError, MissingKeyError, RareKeyWarning, SpaceError, TableError
 from . import format as fmt
 from .arrays import codes_of, encode_counts, exact_sum, fits_code64, symbols_of
 
 FORMALISM = "busy-beaver: entries MOVE(write, direction, next) or HALT(write); every transition is a step"
 MISSING_POLICIES = ("raise", "nan", "fallback")
+DEFAULT_MIN_SEEN = 10  # sampled keys seen fewer times than this draw a RareKeyWarning
 MAX_DENSE = 1 << 26  # keys in one dense view: 512 MiB of float64
 SHIPPED = Path(__file__).parent
 
@@ -73,6 +76,7 @@ class Table:
         self.hist_steps = hist_steps
         self.hist_len = hist_len
         self._dense = {}
+        self.min_seen = DEFAULT_MIN_SEEN
         self._index = {}
         self.total = sum(exact_sum(g.counts) for g in groups.values())
 
@@ -85,6 +89,12 @@ class Table:
     def undecided_runs(self) -> int:
         """Runs (machine, blank) that reached the cap unproven: the bound on any count's error."""
         return self.blanks * self.undecided
+
+    @property
+    def streams(self) -> list:
+        """Sampled tables: [(seed, size)] of every stream the samples came from."""
+        sample = self.header.get("sample") or {}
+        return [tuple(x) for x in sample.get("streams", [[sample.get("seed"), sample.get("size")]])]
 
     @property
     def distinct(self) -> int:
@@ -159,8 +169,12 @@ class Table:
             "notes": notes,
         }
         if tally.mode == "sampled":
-            header["sample"] = {"size": tally.samples, "seed": tally.seed, "halting_samples": tally.halting,
-                                "images_per_sample": tally.images}
+            streams = tally.streams or [(tally.seed, tally.samples)]
+            header["sample"] = {"size": tally.samples, "seed": streams[0][0], "halting_samples": tally.halting,
+                                "images_per_sample": tally.images, "streams": [list(s) for s in streams],
+                                "relabelling": "all" if tally.space.symbols <= FULL_RELABELLING_MAX else "blank-swaps"}
+            if tally.until:
+                header["build"]["until"] = tally.until
             header["invariant"] = ("halting + non_halting + undecided = sample size (totals count samples); "
                                    "counts sum to images_per_sample x halting")
         table = cls(header, groups, list(tally.steps_hist), list(tally.length_hist))
@@ -177,6 +191,14 @@ class Table:
         units, stats = self.header.get("units", {}), self.header.get("stats", {})
         covered = units.get("covered")
         shard = units.get("shard")
+        sampled = {}
+        if self.mode == "sampled":
+            sample = self.header["sample"]
+            sampled = dict(
+                mode="sampled", samples=sample["size"], seed=self.streams[0][0], streams=list(self.streams),
+                moments={s: {row.tobytes(): int(c) for row, c in zip(self.groups[s].rows(m), self.groups[s].moments)}
+                         for s in self.shapes},
+                seconds=float(self.header.get("build", {}).get("seconds", 0)))
         return Tally(
             space=self.space, cap=self.cap, groups=groups, halting=self.halting,
             non_halting=self.non_halting, undecided=self.undecided,
@@ -186,7 +208,7 @@ class Table:
             deciders=tuple(self.header.get("deciders", [])), units=units.get("count", 1),
             covered=None if covered == "all" else list(covered),
             weight=int(units.get("weight", self.space_size)), plan_ident=units.get("plan", ""),
-            depth=units.get("depth", 0), shard=None if shard is None else tuple(shard),
+            depth=units.get("depth", 0), shard=None if shard is None else tuple(shard), **sampled,
         )
 
     def _key_summary(self) -> dict:
@@ -278,7 +300,9 @@ class Table:
         return 0 if pos < 0 else int(self.groups[shape].counts[pos])
 
     def probability(self, key) -> float:
-        return self.count(key) / self.total
+        c = self.count(key)
+        self._warn_rare(key, c)
+        return c / self.total
 
     def fallback(self) -> float:
         """CTM for a key never produced under the 'fallback' policy: log2(total) + 1 bits,
@@ -291,8 +315,9 @@ class Table:
         if missing == "fallback":
             return self.fallback()
         if missing == "raise":
+            never = "seen in this sample" if self.mode == "sampled" else "produced by this table"
             raise MissingKeyError(
-                f"key {key!r} was never produced by this table ({self.space.label}, cap {self.cap}); "
+                f"key {key!r} was never {never} ({self.space.label}, cap {self.cap}); "
                 "use the missing-key policy 'nan' or 'fallback' (--missing in the CLI) to score it anyway"
             )
         raise TableError(f"unknown missing-key policy {missing!r}; use one of {', '.join(MISSING_POLICIES)}")
@@ -302,6 +327,7 @@ class Table:
         c = self.count(key)
         if c == 0:
             return self._missing(key, missing)
+        self._warn_rare(key, c)
         return math.log2(self.total) - math.log2(c)
 
     def interval(self, key) -> tuple[float, float]:
@@ -309,7 +335,11 @@ class Table:
         in [c, c + U] and the true halting total in [H, H + U], U = undecided runs).
         Sampled tables: an approximate 95% interval from the standard error (not certified)."""
         if self.mode == "sampled":
-            p, se = self.probability(key), self.standard_error(key)
+            c = self.count(key)
+            if c == 0:  # never seen in H halting samples: p <= 3/H at 95% (the rule of three)
+                return (math.log2(self.halting / 3) if self.halting > 3 else 0.0), math.inf
+            self._warn_rare(key, c)
+            p, se = c / self.total, self.standard_error(key)
             hi_p, lo_p = p + 1.96 * se, p - 1.96 * se
             return (-math.log2(hi_p) if hi_p > 0 else math.inf, -math.log2(lo_p) if lo_p > 0 else math.inf)
         c, u, h = self.count(key), self.undecided_runs, self.total
@@ -318,21 +348,61 @@ class Table:
         return low, high
 
     def standard_error(self, key) -> float:
-        """Sampled tables: the standard error of the probability estimate (delta method for the
-        ratio of per-sample image counts). Exhaustive tables are exact: 0."""
+        """Sampled tables: the standard error of the probability estimate (delta method, see
+        enumerator.tally.sample_errors). Exhaustive tables are exact: 0."""
         if self.mode != "sampled":
             return 0.0
-        shape, pos = self._find(key)
-        s1 = 0 if pos < 0 else int(self.groups[shape].counts[pos])
-        s2 = 0 if pos < 0 else int(self.groups[shape].moments[pos])
-        n = self.header["sample"]["size"]
-        k = self.header["sample"]["images_per_sample"]
-        h = self.halting
-        if h == 0:
+        if self.halting == 0:
             return math.nan
-        p = s1 / (k * h)
-        var = (s2 - 2 * p * k * s1 + p * p * k * k * h) / n  # E[(X - pY)^2], Y = k per halting sample
-        return math.sqrt(max(var, 0.0) / n) / (k * h / n)
+        shape, pos = self._find(key)
+        if pos < 0:
+            return math.nan  # never seen: see interval() for its one-sided bound
+        return float(self._errors(int(self.groups[shape].counts[pos]), int(self.groups[shape].moments[pos])))
+
+    def seen(self, key) -> float:
+        """Sampled tables: how many samples produced the key, S1^2 / S2 (exact when each of them
+        gave it the same number of images; the count alone overstates keys that are their own
+        images, such as 0000). Exhaustive tables: its count."""
+        shape, pos = self._find(key)
+        if pos < 0:
+            return 0.0
+        g = self.groups[shape]
+        if self.mode != "sampled":
+            return float(g.counts[pos])
+        return float(_seen(np.float64(g.counts[pos]), np.float64(g.moments[pos])))
+
+    def _errors(self, s1, s2):
+        sample = self.header["sample"]
+        return sample_errors(s1, s2, sample["size"], sample["images_per_sample"], self.halting)
+
+    def relative_errors(self, shape) -> np.ndarray:
+        """Sampled tables: standard error / estimate for every key of one shape seen, in key order."""
+        shape = (shape,) if isinstance(shape, int) else tuple(shape)
+        g = self.groups.get(shape)
+        if self.mode != "sampled" or g is None:
+            return np.zeros(0 if g is None else len(g))
+        s1 = np.asarray(g.counts, dtype=np.float64)
+        return self._errors(s1, np.asarray(g.moments, dtype=np.float64)) / (s1 / self.total)
+
+    def rare(self, min_seen: int | None = None) -> int:
+        """Sampled tables: how many keys were seen fewer than min_seen times (default
+        self.min_seen); their estimates are rough. Exhaustive tables: 0."""
+        limit = self.min_seen if min_seen is None else min_seen
+        if self.mode != "sampled":
+            return 0
+        return sum(int(np.count_nonzero(self._group_seen(g) < limit)) for g in self.groups.values())
+
+    @staticmethod
+    def _group_seen(g: Group) -> np.ndarray:
+        return _seen(np.asarray(g.counts, dtype=np.float64), np.asarray(g.moments, dtype=np.float64))
+
+    def _warn_rare(self, key, c) -> None:
+        if self.mode == "sampled" and c > 0 and self.min_seen > 0:
+            seen = self.seen(key)
+            if seen < self.min_seen:
+                warnings.warn(RareKeyWarning(
+                    f"{key!r} was seen in {seen:.3g} samples, fewer than {self.min_seen}; its estimate "
+                    "is rough (sample more, or set min_seen to silence this)"), stacklevel=3)
 
     def lookup(self, keys, missing: str = "nan") -> dict:
         """Vectorised lookups. keys: a list of keys, or an N x L (1D) / N x R x C (2D)
@@ -351,7 +421,28 @@ class Table:
             if missing == "raise":
                 self._missing("(one of the keys)", "raise")
             ctm[absent] = self._missing(None, missing)
-        return {"count": counts, "probability": counts / self.total, "ctm": ctm}
+        out = {"count": counts, "probability": counts / self.total, "ctm": ctm}
+        if self.mode == "sampled":
+            if isinstance(keys, np.ndarray) and keys.ndim == self.space.dims + 1:
+                moments = self._moments_of(shape, rows)
+            else:
+                moments = np.array([self._moments_of(s, r[None, :])[0] for s, r in parsed]) if parsed else np.zeros(0)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                out["standard_error"] = np.where(counts > 0, self._errors(counts, moments), np.nan)
+                rare = int(np.count_nonzero((counts > 0) & (_seen(counts, moments) < self.min_seen)))
+            if rare:
+                warnings.warn(RareKeyWarning(
+                    f"{rare} of the {len(counts)} keys were seen fewer than {self.min_seen} times in this sampled "
+                    "table; their estimates are rough (sample more, or set min_seen to silence this)"), stacklevel=2)
+        return out
+
+    def _moments_of(self, shape, rows) -> np.ndarray:
+        g = self.groups.get(shape)
+        if g is None:
+            return np.zeros(len(rows))
+        pos = self._position(shape, np.ascontiguousarray(rows, dtype=np.uint8))
+        vals = np.asarray(g.moments, dtype=np.float64)
+        return np.where(pos >= 0, vals[np.maximum(pos, 0)], 0.0)
 
     def _counts_of(self, shape, rows) -> np.ndarray:
         g = self.groups.get(shape)
@@ -443,22 +534,57 @@ class Table:
             "generator": self.header.get("generator", {}),
             "build": self.header.get("build", {}),
             "notes": self.header.get("notes", ""),
+            **(self._sample_summary() if self.mode == "sampled" else {}),
         }
 
+    def _sample_summary(self) -> dict:
+        """Per output size (1D length, 2D longer side): keys seen, the median and worst relative
+        standard error, and the keys seen fewer than min_seen times."""
+        by_size: dict = {}
+        for shape in self.shapes:
+            rel = self.relative_errors(shape)
+            entry = by_size.setdefault(max(shape), {"rel": [], "rare": 0})
+            entry["rel"].append(rel)
+            entry["rare"] += int(np.count_nonzero(self._group_seen(self.groups[shape]) < self.min_seen))
+        rows = []
+        for size, entry in sorted(by_size.items()):
+            rel = np.concatenate(entry["rel"])
+            rows.append({"size": size, "keys": len(rel), "median_relative_error": float(np.median(rel)),
+                         "worst_relative_error": float(rel.max()), "rare_keys": entry["rare"]})
+        return {"streams": [list(x) for x in self.streams], "min_seen": self.min_seen,
+                "rare_keys": sum(r["rare_keys"] for r in rows), "errors_by_size": rows}
+
     def write_csv(self, out) -> None:
-        if self.mode == "sampled":  # sampled: the standard error of each probability too
-            out.write("key,count,probability,standard_error\n")
+        """One row per key: the exact count, and for sampled tables the probability, its standard
+        error, the CTM and its 95% interval (not certified)."""
+        if self.mode != "sampled":
+            out.write("key,count\n")
             for k, c in self.items():
-                out.write(f"{k},{c},{c / self.total:.6g},{self.standard_error(k):.3g}\n")
+                out.write(f"{k},{c}\n")
             return
-        out.write("key,count\n")
-        for k, c in self.items():
-            out.write(f"{k},{c}\n")
+        out.write("key,count,probability,standard_error,ctm,ctm_low,ctm_high\n")
+        log_total = math.log2(self.total)
+        for shape in self.shapes:
+            g = self.groups[shape]
+            counts = np.asarray(g.counts, dtype=np.float64)
+            p = counts / self.total
+            se = self._errors(counts, np.asarray(g.moments, dtype=np.float64))
+            with np.errstate(divide="ignore", invalid="ignore"):
+                low = -np.log2(p + 1.96 * se)
+                high = np.where(p > 1.96 * se, -np.log2(np.maximum(p - 1.96 * se, 1e-300)), np.inf)
+            for row, c, pi, e, lo, hi in zip(g.rows(self.space.symbols), g.counts, p, se, low, high):
+                out.write(f"{self.key_text(shape, row)},{int(c)},{pi:.6g},{e:.3g},"
+                          f"{log_total - math.log2(int(c)):.6g},{lo:.6g},{hi:.6g}\n")
 
     def to_json(self) -> dict:
         meta = {k: v for k, v in self.header.items() if k not in ("body",) and not k.startswith("_")}
         return {"meta": meta, "counts": dict(self.items()),
                 "hist_steps": self.hist_steps, "hist_len": self.hist_len}
+
+
+def _seen(s1, s2):
+    """Samples behind a key: S1^2 / S2 (n samples of x images each give n x^2 / x^2 = n)."""
+    return s1 * s1 / s2
 
 
 def _whoami() -> str:

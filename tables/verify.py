@@ -51,6 +51,9 @@ def _images(table: Table, shape: tuple, rows: np.ndarray):
         names = ["rotation 90", "rotation 180", "rotation 270", "flip", "flip+90", "flip+180", "flip+270"]
         for name, img in zip(names, dihedral_images(grids, 2)[1:]):
             yield name, tuple(img.shape[1:]), img.reshape(len(rows), -1)
+    sample = table.header.get("sample") or {}
+    if table.mode == "sampled" and m > 2 and sample.get("relabelling") != "all":
+        return  # each sample took the transpositions only: closed in expectation, not exactly
     for b, perm in enumerate(blank_perms(m)[1:], start=1):
         yield f"blank swap (0 {b})", shape, perm[rows]
 

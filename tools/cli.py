@@ -11,7 +11,9 @@ import time
 from pathlib import Path
 
 from .._version import __version__
-from ..errors import CtmtabError
+from ..errors import CtmtabError, RareKeyWarning
+
+DEFAULT_MIN_SEEN = 10  # the reader's default too (tables.table.DEFAULT_MIN_SEEN)
 
 # Known busy beaver step counts S(n, m), the default cap where one is known
 # (REFERENCES.md: OEIS A060843; Lafitte & Papazian 2007 for (2,3)).
@@ -25,10 +27,14 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"{self.prog}: {message}; see {self.prog} --help\n")
 
 
+SPACE_DEFAULTS = {"dims": 1, "states": 3, "symbols": 2}
+
+
 def _space_args(p):
-    p.add_argument("--dims", type=int, default=1, choices=(1, 2), help="1 (tape) or 2 (grid); default 1")
-    p.add_argument("--states", type=int, default=3, help="working states n >= 1; default 3")
-    p.add_argument("--symbols", type=int, default=2, help="symbols m >= 2; default 2")
+    # Defaults are filled in later, so that --extend can tell a given option from a default.
+    p.add_argument("--dims", type=int, default=None, choices=(1, 2), help="1 (tape) or 2 (grid); default 1")
+    p.add_argument("--states", type=int, default=None, help="working states n >= 1; default 3")
+    p.add_argument("--symbols", type=int, default=None, help="symbols m >= 2; default 2")
     p.add_argument("--max-steps", type=int, default=None,
                    help="step cap T; default the busy beaver value S(n) where known")
 
@@ -46,8 +52,15 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--workers", type=int, default=None, help="local processes; default every core")
     p.add_argument("--scheduler", metavar="ADDRESS", help="run the units on a Dask cluster (tcp://host:8786)")
     p.add_argument("--shard", metavar="I/N", help="build only units I mod N into a shard file (merge them later)")
-    p.add_argument("--sample", type=int, metavar="N", help="run N machines drawn uniformly instead of all")
-    p.add_argument("--seed", type=int, default=1, help="seed of --sample; default 1")
+    p.add_argument("--sample", type=int, metavar="N",
+                   help="run N machines drawn uniformly instead of all (with --until: at most N)")
+    p.add_argument("--seed", type=int, default=None,
+                   help="seed of a sampled build; default 1, or with --extend one above the table's seeds")
+    p.add_argument("--until", action="append", metavar="TARGET", default=[],
+                   help="stop sampling early: 5%%@8 (every key of size 8 seen has a relative standard "
+                        "error <= 5%%) or a time budget such as 90s, 30m, 2h; may be given twice")
+    p.add_argument("--extend", metavar="TABLE",
+                   help="add new samples (under a new seed) to this sampled table; writes it in place unless -o")
     p.add_argument("--split-depth", type=int, default=None,
                    help="branch points above the work-unit cut; default from the space")
     p.add_argument("--budget-hours", type=float, default=24.0,
@@ -65,6 +78,8 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("keys", nargs="+", help='keys such as 0110 (1D) or 01/10 (2D rows)')
     p.add_argument("--missing", choices=("raise", "nan", "fallback"), default="raise",
                    help="keys never produced: fail (default), NaN, or the fallback value")
+    p.add_argument("--min-seen", type=int, default=DEFAULT_MIN_SEEN, metavar="K",
+                   help=f"sampled tables: warn about keys seen in fewer than K samples; default {DEFAULT_MIN_SEEN}")
     p.add_argument("--json", action="store_true")
 
     p = sub.add_parser("verify", help="check checksums, invariants and symmetry closure")
@@ -125,23 +140,98 @@ def _shard(text):
     return i, n
 
 
+_UNITS = {"s": 1, "m": 60, "h": 3600, "d": 86400}
+
+
+def _until(texts):
+    """--until values -> a Target: 5%@8 or 0.05@8 (error bound at a key size), 90s / 30m / 2h."""
+    from ..enumerator import Target
+
+    error = size = seconds = None
+    for text in texts:
+        t = text.strip().lower()
+        try:
+            if "@" in t:
+                bound, at = t.split("@")
+                error = float(bound[:-1]) / 100 if bound.endswith("%") else float(bound)
+                size = int(at)
+            elif t and t[-1] in _UNITS:
+                seconds = float(t[:-1]) * _UNITS[t[-1]]
+            else:
+                raise ValueError
+        except ValueError:
+            raise CtmtabError(f"--until {text!r} is neither an error target like 5%@8 nor a time like 30m") from None
+    return Target(error=error, size=size, seconds=seconds)
+
+
+def _deciders(text: str) -> tuple:
+    from ..enumerator import ALL_DECIDERS
+
+    if text in ("all", "none"):
+        return ALL_DECIDERS if text == "all" else ()
+    return tuple(d.strip() for d in text.split(",") if d.strip())
+
+
+def _extend_base(a):
+    """--extend: the table to add to, and the space, cap and deciders it fixes."""
+    from ..tables import load
+
+    base = load(a.extend)
+    if base.mode != "sampled":
+        raise CtmtabError(f"{a.extend} is an exhaustive table; only sampled tables can be extended")
+    given = {"dims": a.dims, "states": a.states, "symbols": a.symbols, "max_steps": a.max_steps}
+    has = {"dims": base.space.dims, "states": base.space.states, "symbols": base.space.symbols,
+           "max_steps": base.cap}
+    for name, value in given.items():
+        if value is not None and value != has[name]:
+            raise CtmtabError(f"--{name.replace('_', '-')} {value} contradicts {a.extend} ({has[name]}); "
+                              "leave it out, the table fixes the space and the cap")
+    seeds = {s for s, _ in base.streams}
+    if a.seed is None:
+        a.seed = max(seeds) + 1
+    elif a.seed in seeds:
+        raise CtmtabError(f"{a.extend} already holds samples of seed {a.seed}; choose a new --seed "
+                          f"(e.g. {max(seeds) + 1}) or leave it out")
+    a.dims, a.states, a.symbols, a.max_steps = has["dims"], has["states"], has["symbols"], has["max_steps"]
+    if a.deciders == "all":
+        a.deciders = ",".join(base.header.get("deciders", [])) or "none"
+    elif set(_deciders(a.deciders)) != set(base.header.get("deciders", [])):
+        raise CtmtabError(f"--deciders contradicts {a.extend}; leave it out, the table fixes the deciders")
+    from ..enumerator.tally import images_per_sample
+    if base.header["sample"]["images_per_sample"] != images_per_sample(base.space):
+        raise CtmtabError(f"{a.extend} expanded each sample into {base.header['sample']['images_per_sample']} "
+                          f"images, this ctmtab into {images_per_sample(base.space)}; rebuild it with this version")
+    return base
+
+
 def cmd_build(a) -> int:
     from ..enumerator import ALL_DECIDERS, Space, build
     from ..enumerator.executors import cores
     from ..tables import Table
     from .progress import Bar
 
+    sampled = a.sample is not None or bool(a.until) or a.extend is not None
+    base = _extend_base(a) if a.extend else None
+    for name, value in SPACE_DEFAULTS.items():
+        if getattr(a, name) is None:
+            setattr(a, name, value)
     space = Space(a.dims, a.states, a.symbols)
     cap = a.max_steps
     if cap is None:
         cap = KNOWN_CAPS.get((a.states, a.symbols)) if a.dims == 1 else None
         if cap is None:
             raise CtmtabError(f"no busy beaver value is known for {space.label}; give --max-steps")
-    deciders = {"all": ALL_DECIDERS, "none": ()}.get(a.deciders) or tuple(
-        d.strip() for d in a.deciders.split(",") if d.strip())
+    deciders = _deciders(a.deciders)
     shard = _shard(a.shard)
-    stem = f"ctm-{space.dims}d-n{space.states}-m{space.symbols}-t{cap}" + (f"-s{a.seed}" if a.sample else "")
-    output = a.output or (stem + (f"-shard{shard[0]}of{shard[1]}" if shard else "") + ".ctmt")
+    if sampled and shard:
+        raise CtmtabError("--shard splits exhaustive builds; give sampled shards their own --seed instead")
+    if a.until and not sampled:
+        raise CtmtabError("--until needs a sampled build")
+    seed = 1 if a.seed is None else a.seed
+    stem = f"ctm-{space.dims}d-n{space.states}-m{space.symbols}-t{cap}" + (f"-s{seed}" if sampled else "")
+    if base is not None and not a.output and not Path(a.extend).is_file():
+        raise CtmtabError(f"{a.extend} is a shipped table; give -o for the extended copy")
+    output = a.output or (a.extend if base else stem + (f"-shard{shard[0]}of{shard[1]}" if shard else "") + ".ctmt")
     if not Path(output).resolve().parent.is_dir():
         raise CtmtabError(f"cannot write {output}: its folder does not exist")
     workers = a.workers if a.workers is not None else cores()
@@ -149,19 +239,29 @@ def cmd_build(a) -> int:
     t0 = time.perf_counter()
     bar = Bar(f"{space.label} cap {cap}", enabled=False if a.quiet else None)
     try:
-        if a.sample is not None:
-            if shard:
-                raise CtmtabError("--shard splits exhaustive builds; give sampled shards their own --seed instead")
+        if sampled:
             from ..enumerator import sample
-            tally = sample(space, cap, a.sample, seed=a.seed, deciders=deciders, workers=workers,
-                           scheduler=a.scheduler, on_progress=bar)
+            tally = sample(space, cap, a.sample, seed=seed, deciders=deciders, workers=workers,
+                           scheduler=a.scheduler, until=_until(a.until),
+                           prior=None if base is None else base.to_tally(), on_progress=bar)
         else:
             tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, workers=workers,
                           scheduler=a.scheduler, shard=shard, spool=spool, budget_hours=a.budget_hours,
                           on_progress=bar)
     finally:
         bar.close()
-    table = Table.from_tally(tally, command=_command(), notes=a.notes, builder=a.builder)
+    if base is not None:
+        from ..tables.merge import merge_samples
+        new = Table.from_tally(tally, command=_command())
+        notes = "; ".join(x for x in (base.header.get("notes", ""), a.notes) if x)
+        table = merge_samples([base, new], command=_command(), builder=a.builder, notes=notes)
+        before = base.header.get("build", {})
+        earlier = before.get("extended", {}).get("commands") or [before.get("command", "")]
+        table.header["build"]["extended"] = {"from": str(a.extend), "commands": earlier + [_command()]}
+        if tally.until:
+            table.header["build"]["until"] = tally.until
+    else:
+        table = Table.from_tally(tally, command=_command(), notes=a.notes, builder=a.builder)
     table.header["build"]["resumed_units"] = tally.resumed
     table.header["build"]["workers"] = "dask" if a.scheduler else workers
     table.save(output)
@@ -170,10 +270,19 @@ def cmd_build(a) -> int:
     if not a.quiet:
         part = f" shard {shard[0]}/{shard[1]}," if shard else ""
         again = f", {tally.resumed} units resumed from {spool}" if tally.resumed else ""
-        what = "sampled machines" if a.sample else "machines"
+        what = f"sampled machines (seed {seed})" if sampled else "machines"
+        stop = ""
+        if tally.until:
+            worst = tally.until["worst_relative_error"]
+            stop = f", stopped by the {tally.until['stopped_by']}" + (
+                f" (worst relative error {worst:.3g} at size {tally.until['size']})" if worst is not None else "")
+        added = ""
+        if base is not None:
+            added = (f"; the table now holds {table.header['sample']['size']:,} samples, {table.distinct:,} outputs, "
+                     f"undecided {table.undecided / table.header['sample']['size']:.3%}")
         print(f"{space.label} cap {cap}:{part} {tally.weight:,} {what}, {tally.distinct():,} outputs, "
-              f"undecided {tally.undecided / tally.weight:.3%}, {time.perf_counter() - t0:.2f} s{again} -> {output}",
-              file=sys.stderr)
+              f"undecided {tally.undecided / tally.weight:.3%}{stop}{added}, {time.perf_counter() - t0:.2f} s{again} "
+              f"-> {output}", file=sys.stderr)
     return 0
 
 
@@ -201,29 +310,58 @@ def cmd_info(a) -> int:
     ]
     if s["notes"]:
         lines.append(f"  notes      {s['notes']}")
+    if t.mode == "sampled":
+        lines[1:2] = [lines[1], "  streams    " + ", ".join(f"seed {seed} ({n:,})" for seed, n in s["streams"])]
+        lines.append(f"  error      relative standard error of each probability (95% interval ~ +-1.96x); "
+                     f"{s['rare_keys']:,} keys seen in fewer than {s['min_seen']} samples")
+        lines.append(f"  {'size':>6} {'keys':>10} {'median':>9} {'worst':>9} {'rare':>9}")
+        rows = s["errors_by_size"]
+        shown = next((i + 1 for i, r in enumerate(rows) if r["rare_keys"] == r["keys"]), len(rows))
+        for r in rows[:shown]:
+            lines.append(f"  {r['size']:>6} {r['keys']:>10,} {r['median_relative_error']:>9.3g} "
+                         f"{r['worst_relative_error']:>9.3g} {r['rare_keys']:>9,}")
+        if shown < len(rows):  # the long tail, where every key is rare (all of it is in --json)
+            tail = rows[shown:]
+            lines.append(f"  sizes {tail[0]['size']}-{tail[-1]['size']}: {sum(r['keys'] for r in tail):,} keys, "
+                         f"{sum(r['rare_keys'] for r in tail):,} of them rare")
     print("\n".join(lines))
     return 0
 
 
 def cmd_lookup(a) -> int:
+    import warnings
+
     from ..tables import load
 
     t = load(a.table)
-    rows = []
+    t.min_seen = a.min_seen
+    rows, rare = [], []
     for key in a.keys:
-        c = t.count(key)
-        ctm = t.ctm(key, missing=a.missing)
-        low, high = t.interval(key)
-        rows.append({"key": key, "count": c, "probability": c / t.total, "ctm": ctm,
-                     "ctm_low": low, "ctm_high": high})
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", RareKeyWarning)
+            c = t.count(key)
+            ctm = t.ctm(key, missing=a.missing)
+            low, high = t.interval(key)
+        rare += [key] if any(issubclass(w.category, RareKeyWarning) for w in caught) else []
+        row = {"key": key, "count": c, "probability": c / t.total, "ctm": ctm, "ctm_low": low, "ctm_high": high}
+        if t.mode == "sampled":
+            row["standard_error"] = t.standard_error(key)
+            row["rare"] = key in rare
+        rows.append(row)
     if a.json:
         _emit(rows, True, "")
     else:
-        kind = "95% interval (sampled)" if t.mode == "sampled" else "certified interval"
-        print(f"{'key':<20} {'count':>22} {'probability':>12} {'CTM bits':>10}  {kind}")
+        sampled = t.mode == "sampled"
+        kind = "95% interval (sampled)" if sampled else "certified interval"
+        print(f"{'key':<20} {'count':>22} {'probability':>12}" + (f" {'std error':>10}" if sampled else "")
+              + f" {'CTM bits':>10}  {kind}")
         for r in rows:
-            print(f"{r['key']:<20} {r['count']:>22,} {r['probability']:>12.6g} {r['ctm']:>10.4f}  "
-                  f"[{r['ctm_low']:.4f}, {r['ctm_high']:.4f}]")
+            print(f"{r['key']:<20} {r['count']:>22,} {r['probability']:>12.6g}"
+                  + (f" {r['standard_error']:>10.3g}" if sampled else "")
+                  + f" {r['ctm']:>10.4f}  [{r['ctm_low']:.4f}, {r['ctm_high']:.4f}]")
+    for key in rare:
+        print(f"ctmtab lookup: warning: {key} was seen in {t.seen(key):.3g} samples, fewer than "
+              f"--min-seen {a.min_seen}; its estimate is rough", file=sys.stderr)
     return 0
 
 
@@ -255,17 +393,19 @@ def cmd_merge(a) -> int:
 def cmd_export(a) -> int:
     from ..tables import load
 
+    import io
+
+    from ..fsutil import write_atomic
+
     t = load(a.table)
-    out = open(a.output, "w", newline="") if a.output else sys.stdout
-    try:
-        if a.format == "csv":
-            t.write_csv(out)
-        else:
-            json.dump(t.to_json(), out, default=str)
-            out.write("\n")
-    finally:
-        if a.output:
-            out.close()
+    out = io.StringIO() if a.output else sys.stdout
+    if a.format == "csv":
+        t.write_csv(out)
+    else:
+        json.dump(t.to_json(), out, default=str)
+        out.write("\n")
+    if a.output:  # all or nothing under the final name
+        write_atomic(a.output, out.getvalue().encode())
     return 0
 
 

@@ -29,21 +29,26 @@ class Bar:
         self.last = 0.0
         self.drawn = False
 
-    def __call__(self, done, total, weight_done, weight_total, steps) -> None:
+    def __call__(self, done, total, weight_done, weight_total, steps, note: str = "") -> None:
+        """total None: the end is not known in units (a sampled build under a time budget)."""
         if not self.enabled:
             return
         now = time.monotonic()
-        if now - self.last < 0.1 and done < total:
+        if now - self.last < 0.1 and (total is None or done < total):
             return
         self.last = now
         elapsed = max(now - self.t0, 1e-9)
-        frac = done / total if total else 1.0
-        eta = elapsed / frac - elapsed if frac > 0 else 0.0
         width = 24
-        fill = int(width * frac)
-        line = (f"\r{self.label} [{'#' * fill}{'.' * (width - fill)}] {done}/{total} units "
-                f"{_human(weight_done / elapsed)} machines/s {_human(steps / elapsed)} steps/s "
-                f"ETA {_clock(eta)} ")
+        if total:
+            frac = done / total
+            eta = elapsed / frac - elapsed if frac > 0 else 0.0
+            fill = int(width * frac)
+            where = f"[{'#' * fill}{'.' * (width - fill)}] {done}/{total} units"
+            tail = f"ETA {_clock(eta)}"
+        else:
+            where, tail = f"{done} units", f"{_clock(elapsed)} elapsed"
+        line = (f"\r{self.label} {where} {_human(weight_done / elapsed)} machines/s "
+                f"{_human(steps / elapsed)} steps/s {tail}" + (f" {note}" if note else "") + " ")
         self.stream.write(line)
         self.stream.flush()
         self.drawn = True

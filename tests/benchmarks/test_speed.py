@@ -4,7 +4,7 @@ In the normal test run each benchmark runs once, as a test."""
 import numpy as np
 import pytest
 
-from ctmtab.enumerator import Space, build, run
+from ctmtab.enumerator import Space, build, run, sample
 from ctmtab.enumerator.tally import Tally
 from ctmtab.tables import Table, load, loads
 
@@ -80,3 +80,13 @@ def test_bdm_2d_throughput(benchmark):
     value = benchmark(bdm, x)
     assert np.isfinite(value)
     benchmark.extra_info["blocks"] = 1_000_000
+
+
+@pytest.mark.parametrize("n,m,cap", [(4, 4, 1000), (5, 2, 1000)])
+def test_sampling_per_core(benchmark, n, m, cap):
+    """Samples per second on one core, the whole sampled build (C sampler with every decider,
+    then the symmetry expansion): 500,000 samples divided by the time."""
+    tally = benchmark.pedantic(sample, args=(Space(1, n, m), cap, 500_000), kwargs={"seed": 7, "workers": 1},
+                               rounds=5, iterations=1)
+    assert tally.samples == 500_000 and tally.undecided < tally.samples // 100
+    benchmark.extra_info["samples"] = tally.samples
