@@ -12,7 +12,7 @@ from ..errors import InvariantError, SpaceError, TooLargeError
 from . import _core, executors
 from .space import Space, check_cap
 from .spool import Spool
-from .tally import Partial, Tally, images_per_sample, sample_errors, sample_sums, size_of
+from .tally import Partial, Tally, images_per_sample, relative_sample_errors, sample_sums, size_of
 from .units import Plan, default_depth, make_plan, unit_weight_ok
 
 # Decider names and their bits in the C core. None of them may change a count.
@@ -222,7 +222,7 @@ def worst_error(space: Space, part: Partial, size: int, prior: Tally | None = No
     for one, two in sums.values():
         s1 = np.fromiter(one.values(), dtype=np.float64, count=len(one))
         s2 = np.fromiter((two[k] for k in one), dtype=np.float64, count=len(one))
-        rel = sample_errors(s1, s2, samples, images, halting) / (s1 / (images * halting))
+        rel = relative_sample_errors(s1, s2, samples, images, halting)
         worst, seen = max(worst, float(rel.max())), seen + len(s1)
     return worst, seen
 

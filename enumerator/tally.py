@@ -112,13 +112,18 @@ def blank_swaps(m: int) -> list[bytes]:
 FULL_RELABELLING_MAX = 5  # sampled outputs take all m! symbol permutations up to m = 5 (120)
 
 
+def relabelling(m: int) -> str:
+    """Which symbol maps a sampled output takes (see sample_perms), as the header names it."""
+    return "all" if m <= FULL_RELABELLING_MAX else "blank-swaps"
+
+
 def sample_perms(m: int) -> list[np.ndarray]:
     """The symbol maps each sampled output is expanded by. Relabelling the non-blank symbols maps
     the space onto itself and blank-0 runs onto blank-0 runs, and the transpositions (0 b) are the
     blank symmetry, so every permutation of the m symbols leaves D unchanged. All m! of them up to
     m = 5: a group, so the sampled table is exactly closed under each. Beyond, the m
     transpositions only (the table is then closed under them in expectation, not exactly)."""
-    if m <= FULL_RELABELLING_MAX:
+    if relabelling(m) == "all":
         return [np.array(p, dtype=np.uint8) for p in itertools.permutations(range(m))]
     return blank_perms(m)
 
@@ -187,6 +192,12 @@ def sample_errors(s1, s2, samples: int, images: int, halting: int):
     p = s1 / (k * h)
     var = (s2 - 2 * p * k * s1 + p * p * k * k * h) / n
     return np.sqrt(np.maximum(var, 0.0) / n) / (k * h / n)
+
+
+def relative_sample_errors(s1, s2, samples: int, images: int, halting: int):
+    """sample_errors divided by the estimates p = S1 / (k H)."""
+    s1 = np.asarray(s1, dtype=np.float64)
+    return sample_errors(s1, s2, samples, images, halting) / (s1 / (float(images) * halting))
 
 
 @dataclass
@@ -351,28 +362,38 @@ def combine_samples(tallies: list, where: list | None = None) -> Tally:
                 raise MergeError(f"{name} and {also} both hold samples of seed {seed}, which would count the "
                                  "same machines twice; draw the extra samples under a new --seed")
             owner[seed] = name
-    groups: dict = {}
-    moments: dict = {}
-    for t in tallies:
-        for target, source in ((groups, t.groups), (moments, t.moments)):
-            for shape, g in source.items():
-                dst = target.setdefault(shape, {})
-                for k, c in g.items():
-                    dst[k] = dst.get(k, 0) + c
     streams = sorted(s for t in tallies for s in t.streams)
     out = Tally(
-        space=first.space, cap=first.cap,
-        groups={s: dict(sorted(groups[s].items())) for s in sorted(groups)},
-        moments={s: dict(sorted(moments[s].items())) for s in sorted(moments)},
-        halting=sum(t.halting for t in tallies), non_halting=sum(t.non_halting for t in tallies),
-        undecided=sum(t.undecided for t in tallies), halting_nodes=0,
-        steps_hist=_trim(functools.reduce(_add_lists, (t.steps_hist for t in tallies), [])),
-        length_hist=_trim(functools.reduce(_add_lists, (t.length_hist for t in tallies), [])),
-        longest_run=max(t.longest_run for t in tallies), most_nonblank=max(t.most_nonblank for t in tallies),
-        steps=sum(t.steps for t in tallies), deciders=tuple(first.deciders),
+        **summed(tallies), moments=add_groups(t.moments for t in tallies), deciders=tuple(first.deciders),
         units=sum(t.units for t in tallies), mode="sampled", samples=sum(n for _, n in streams),
         seed=streams[0][0], streams=streams, weight=sum(n for _, n in streams),
         seconds=sum(t.seconds for t in tallies),
     )
     out.check()
     return out
+
+
+def add_groups(sources) -> dict:
+    """The key-by-key sum of several shape -> {key: count} maps, sorted by shape and key."""
+    total: dict = {}
+    for source in sources:
+        for shape, g in source.items():
+            dst = total.setdefault(shape, {})
+            for k, c in g.items():
+                dst[k] = dst.get(k, 0) + c
+    return {s: dict(sorted(total[s].items())) for s in sorted(total)}
+
+
+def summed(tallies: list) -> dict:
+    """The fields that add (or take the maximum) when tallies of one space and cap combine:
+    counts, totals, histograms, run records. Merges of shards and of samples both use it."""
+    first = tallies[0]
+    return dict(
+        space=first.space, cap=first.cap, groups=add_groups(t.groups for t in tallies),
+        halting=sum(t.halting for t in tallies), non_halting=sum(t.non_halting for t in tallies),
+        undecided=sum(t.undecided for t in tallies), halting_nodes=sum(t.halting_nodes for t in tallies),
+        steps_hist=_trim(functools.reduce(_add_lists, (t.steps_hist for t in tallies), [])),
+        length_hist=_trim(functools.reduce(_add_lists, (t.length_hist for t in tallies), [])),
+        longest_run=max(t.longest_run for t in tallies), most_nonblank=max(t.most_nonblank for t in tallies),
+        steps=sum(t.steps for t in tallies),
+    )

@@ -1,7 +1,9 @@
-"""Exact merging of the shards of one build into one table."""
+"""Exact merging of the shards of one build, or of sampled tables, into one table."""
 from __future__ import annotations
 
-from ..enumerator.tally import combine_samples, images_per_sample
+import dataclasses
+
+from ..enumerator.tally import combine_samples, images_per_sample, summed
 from ..errors import MergeError
 from .table import Table
 
@@ -45,38 +47,26 @@ def merge(tables: list[Table], *, command: str = "", builder: str | None = None)
         hint = " (shards " + ", ".join(f"{i}/{of}" for i in shards) + ")" if shards else ""
         raise MergeError(f"{len(missing)} of {count} work units are missing{hint}; add the missing shard files")
     tallies = [t.to_tally() for t in tables]
-    merged = tallies[0]
-    groups = {}
-    for tl in tallies:
-        for shape, g in tl.groups.items():
-            dst = groups.setdefault(shape, {})
-            for k, c in g.items():
-                dst[k] = dst.get(k, 0) + c
-    merged.groups = {s: dict(sorted(groups[s].items())) for s in sorted(groups)}
-    for name in ("halting", "non_halting", "undecided", "halting_nodes", "steps"):
-        setattr(merged, name, sum(getattr(tl, name) for tl in tallies))
-    for name in ("longest_run", "most_nonblank"):
-        setattr(merged, name, max(getattr(tl, name) for tl in tallies))
-    for name in ("steps_hist", "length_hist"):
-        width = max(len(getattr(tl, name)) for tl in tallies)
-        setattr(merged, name, [sum(getattr(tl, name)[i] for tl in tallies if i < len(getattr(tl, name)))
-                               for i in range(width)])
-    merged.covered, merged.shard, merged.weight = None, None, merged.space.size
+    merged = dataclasses.replace(tallies[0], **summed(tallies), covered=None, shard=None, weight=None)
     merged.seconds = sum(float(t.header.get("build", {}).get("seconds", 0)) for t in tables)
     merged.check()
     notes = "merged from " + ", ".join(str(t.source) for t in tables)
     return Table.from_tally(merged, command=command, notes=notes, builder=builder)
 
 
-def merge_samples(tables: list[Table], *, command: str = "", builder: str | None = None,
-                  notes: str | None = None) -> Table:
+def merge_samples(tables: list[Table], *, command: str = "", builder: str | None = None) -> Table:
     """One sampled table from sampled tables drawn under different seeds: exact sums of the
     counts, moments, totals and histograms. A seed in two tables is refused."""
     for t in tables:
-        if t.mode == "sampled" and t.header["sample"]["images_per_sample"] != images_per_sample(t.space):
-            raise MergeError(f"{t.source} expanded each sample into {t.header['sample']['images_per_sample']} "
-                             f"images, this ctmtab into {images_per_sample(t.space)}; rebuild it with this version")
+        check_expansion(t)
     merged = combine_samples([t.to_tally() for t in tables], [str(t.source) for t in tables])
-    if notes is None:
-        notes = "merged from " + ", ".join(str(t.source) for t in tables)
+    notes = "merged from " + ", ".join(str(t.source) for t in tables)
     return Table.from_tally(merged, command=command, notes=notes, builder=builder)
+
+
+def check_expansion(t: Table) -> None:
+    """A sampled table whose samples were expanded into another number of images than this
+    version's (format 1.1, m >= 3) cannot be added to: its counts would mix two estimators."""
+    if t.mode == "sampled" and t.header["sample"]["images_per_sample"] != images_per_sample(t.space):
+        raise MergeError(f"{t.source} expanded each sample into {t.header['sample']['images_per_sample']} "
+                         f"images, this ctmtab into {images_per_sample(t.space)}; rebuild it with this version")

@@ -14,7 +14,7 @@ import numpy as np
 
 from .._version import __version__
 from ..enumerator.space import Space
-from ..enumerator.tally import FULL_RELABELLING_MAX, sample_errors
+from ..enumerator.tally import relabelling, relative_sample_errors, sample_errors
 from ..errors import InconsistentTableError, MissingKeyError, RareKeyWarning, SpaceError, TableError
 from . import format as fmt
 from .arrays import codes_of, encode_counts, exact_sum, fits_code64, symbols_of
@@ -172,7 +172,7 @@ class Table:
             streams = tally.streams or [(tally.seed, tally.samples)]
             header["sample"] = {"size": tally.samples, "seed": streams[0][0], "halting_samples": tally.halting,
                                 "images_per_sample": tally.images, "streams": [list(s) for s in streams],
-                                "relabelling": "all" if tally.space.symbols <= FULL_RELABELLING_MAX else "blank-swaps"}
+                                "relabelling": relabelling(tally.space.symbols)}
             if tally.until:
                 header["build"]["until"] = tally.until
             header["invariant"] = ("halting + non_halting + undecided = sample size (totals count samples); "
@@ -339,9 +339,8 @@ class Table:
             if c == 0:  # never seen in H halting samples: p <= 3/H at 95% (the rule of three)
                 return (math.log2(self.halting / 3) if self.halting > 3 else 0.0), math.inf
             self._warn_rare(key, c)
-            p, se = c / self.total, self.standard_error(key)
-            hi_p, lo_p = p + 1.96 * se, p - 1.96 * se
-            return (-math.log2(hi_p) if hi_p > 0 else math.inf, -math.log2(lo_p) if lo_p > 0 else math.inf)
+            low, high = _interval95(np.float64(c / self.total), np.float64(self.standard_error(key)))
+            return float(low), float(high)
         c, u, h = self.count(key), self.undecided_runs, self.total
         low = math.log2(h + u) - math.log2(c + u) if c + u else math.inf
         high = math.log2(h + u) - math.log2(c) if c else math.inf
@@ -371,9 +370,9 @@ class Table:
             return float(g.counts[pos])
         return float(_seen(np.float64(g.counts[pos]), np.float64(g.moments[pos])))
 
-    def _errors(self, s1, s2):
+    def _errors(self, s1, s2, errors=sample_errors):
         sample = self.header["sample"]
-        return sample_errors(s1, s2, sample["size"], sample["images_per_sample"], self.halting)
+        return errors(s1, s2, sample["size"], sample["images_per_sample"], self.halting)
 
     def relative_errors(self, shape) -> np.ndarray:
         """Sampled tables: standard error / estimate for every key of one shape seen, in key order."""
@@ -381,8 +380,8 @@ class Table:
         g = self.groups.get(shape)
         if self.mode != "sampled" or g is None:
             return np.zeros(0 if g is None else len(g))
-        s1 = np.asarray(g.counts, dtype=np.float64)
-        return self._errors(s1, np.asarray(g.moments, dtype=np.float64)) / (s1 / self.total)
+        return self._errors(np.asarray(g.counts, dtype=np.float64), np.asarray(g.moments, dtype=np.float64),
+                            relative_sample_errors)
 
     def rare(self, min_seen: int | None = None) -> int:
         """Sampled tables: how many keys were seen fewer than min_seen times (default
@@ -569,9 +568,7 @@ class Table:
             counts = np.asarray(g.counts, dtype=np.float64)
             p = counts / self.total
             se = self._errors(counts, np.asarray(g.moments, dtype=np.float64))
-            with np.errstate(divide="ignore", invalid="ignore"):
-                low = -np.log2(p + 1.96 * se)
-                high = np.where(p > 1.96 * se, -np.log2(np.maximum(p - 1.96 * se, 1e-300)), np.inf)
+            low, high = _interval95(p, se)
             for row, c, pi, e, lo, hi in zip(g.rows(self.space.symbols), g.counts, p, se, low, high):
                 out.write(f"{self.key_text(shape, row)},{int(c)},{pi:.6g},{e:.3g},"
                           f"{log_total - math.log2(int(c)):.6g},{lo:.6g},{hi:.6g}\n")
@@ -580,6 +577,16 @@ class Table:
         meta = {k: v for k, v in self.header.items() if k not in ("body",) and not k.startswith("_")}
         return {"meta": meta, "counts": dict(self.items()),
                 "hist_steps": self.hist_steps, "hist_len": self.hist_len}
+
+
+def _interval95(p, se):
+    """CTM bounds, in bits, of the approximate 95% interval p +- 1.96 se (numpy); inf where a
+    bound of the probability is not above 0."""
+    hi_p, lo_p = p + 1.96 * se, p - 1.96 * se
+    with np.errstate(divide="ignore", invalid="ignore"):
+        low = np.where(hi_p > 0, -np.log2(np.maximum(hi_p, 1e-300)), np.inf)
+        high = np.where(lo_p > 0, -np.log2(np.maximum(lo_p, 1e-300)), np.inf)
+    return low, high
 
 
 def _seen(s1, s2):

@@ -197,10 +197,8 @@ def _extend_base(a):
         a.deciders = ",".join(base.header.get("deciders", [])) or "none"
     elif set(_deciders(a.deciders)) != set(base.header.get("deciders", [])):
         raise CtmtabError(f"--deciders contradicts {a.extend}; leave it out, the table fixes the deciders")
-    from ..enumerator.tally import images_per_sample
-    if base.header["sample"]["images_per_sample"] != images_per_sample(base.space):
-        raise CtmtabError(f"{a.extend} expanded each sample into {base.header['sample']['images_per_sample']} "
-                          f"images, this ctmtab into {images_per_sample(base.space)}; rebuild it with this version")
+    from ..tables.merge import check_expansion
+    check_expansion(base)
     return base
 
 
@@ -212,6 +210,7 @@ def cmd_build(a) -> int:
 
     sampled = a.sample is not None or bool(a.until) or a.extend is not None
     base = _extend_base(a) if a.extend else None
+    prior = None if base is None else base.to_tally()  # converted once: the target and the sum use it
     for name, value in SPACE_DEFAULTS.items():
         if getattr(a, name) is None:
             setattr(a, name, value)
@@ -242,8 +241,7 @@ def cmd_build(a) -> int:
         if sampled:
             from ..enumerator import sample
             tally = sample(space, cap, a.sample, seed=seed, deciders=deciders, workers=workers,
-                           scheduler=a.scheduler, until=_until(a.until),
-                           prior=None if base is None else base.to_tally(), on_progress=bar)
+                           scheduler=a.scheduler, until=_until(a.until), prior=prior, on_progress=bar)
         else:
             tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, workers=workers,
                           scheduler=a.scheduler, shard=shard, spool=spool, budget_hours=a.budget_hours,
@@ -251,10 +249,10 @@ def cmd_build(a) -> int:
     finally:
         bar.close()
     if base is not None:
-        from ..tables.merge import merge_samples
-        new = Table.from_tally(tally, command=_command())
+        from ..enumerator.tally import combine_samples
         notes = "; ".join(x for x in (base.header.get("notes", ""), a.notes) if x)
-        table = merge_samples([base, new], command=_command(), builder=a.builder, notes=notes)
+        table = Table.from_tally(combine_samples([prior, tally], [str(a.extend), "the new samples"]),
+                                 command=_command(), notes=notes, builder=a.builder)
         before = base.header.get("build", {})
         earlier = before.get("extended", {}).get("commands") or [before.get("command", "")]
         table.header["build"]["extended"] = {"from": str(a.extend), "commands": earlier + [_command()]}
