@@ -54,6 +54,14 @@ class InconsistentTableError(TableError):
     """The metadata contradicts the body."""
 
 
+class CoreMissingError(CtmtabError, ImportError):
+    """The compiled core is missing or stale: only building and running machines need it."""
+
+
+class OutputError(CtmtabError):
+    """An output path that cannot be written safely: a folder, a reader-less pipe, the input itself."""
+
+
 class MergeError(CtmtabError, ValueError):
     """Tables or shards that cannot be merged into one table."""
 

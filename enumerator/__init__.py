@@ -1,17 +1,26 @@
-"""The exhaustive enumerator: the C core, its binding and the Python driver."""
-from . import _core
-from .driver import ALL_DECIDERS, DECIDERS, Estimate, Target, build, estimate, plan, run_unit, sample
-from .units import Plan, Unit
-from .machine import Machine, Run, run
-from .space import Space
-from .tally import Tally
+"""The exhaustive enumerator: the C core, its binding and the Python driver.
 
-if _core.API_VERSION != 1:  # the compiled module must match this Python code
-    raise ImportError(
-        f"ctmtab's compiled core has API version {_core.API_VERSION}, expected 1; reinstall with pip install ."
-    )
+Names load on first use (PEP 562) and the compiled core only when a search runs
+(native.py): tables/ imports space.py and tally.py, which need no compiler."""
+import importlib
 
-__all__ = [
-    "ALL_DECIDERS", "DECIDERS", "Estimate", "Machine", "Plan", "Run", "Space", "Tally", "Unit",
-    "Target", "build", "estimate", "plan", "run", "run_unit", "sample",
-]
+_HOME = {
+    "ALL_DECIDERS": "driver", "DECIDERS": "driver", "Estimate": "driver", "Target": "driver",
+    "build": "driver", "estimate": "driver", "plan": "driver", "run_unit": "driver", "sample": "driver",
+    "Plan": "units", "Unit": "units", "Machine": "machine", "Run": "machine", "run": "machine",
+    "Space": "space", "Tally": "tally",
+}
+
+__all__ = sorted(_HOME)
+
+
+def __getattr__(name):
+    if name not in _HOME:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    value = getattr(importlib.import_module(f".{_HOME[name]}", __name__), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_HOME))

@@ -9,9 +9,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import InvariantError, SpaceError, TooLargeError
-from . import _core, executors
+from . import executors
+from .native import core as _core
 from .space import Space, check_cap
-from .spool import Spool
+from .spool import Spool, kept
 from .tally import Partial, Tally, images_per_sample, relative_sample_errors, sample_sums, size_of
 from .units import Plan, default_depth, make_plan, unit_weight_ok
 
@@ -19,10 +20,17 @@ from .units import Plan, default_depth, make_plan, unit_weight_ok
 DECIDERS = {"full-table": 1, "escapee": 2, "cycler": 4, "translated-cycler": 8}
 ALL_DECIDERS = tuple(DECIDERS)
 
-# Cost model of the estimate, from the (4,2) and (5,2) builds on this project's machine
-# (README.md, Performance): simulated steps and branch points per second on one core.
-STEPS_PER_SECOND = 2e8
-NODES_PER_SECOND = 1.5e6
+# Cost model of the estimate, single-core seconds, fitted to builds on this project's machine:
+# 1D to the (4,2) and (5,2) figures of README.md (Performance); 2D to (3,2) and (2,3) at caps
+# 100-2000 and (4,2) at cap 2000 (README.md). A 2D step costs more (grid rows lie 2 cap + 3 bytes
+# apart), and every 2D unit pays for its (2 cap + 3)^2 grid, which dominates small 2D builds.
+STEPS_PER_SECOND = 2e8       # 1D
+STEPS_PER_SECOND_2D = 7e7
+NODES_PER_SECOND = 1.5e6     # branch points at m = 2; each tallies m HALT leaves, so cost grows with m
+UNIT_SECONDS = 8e-5          # per unit: Python, the executor, the merge
+CELL_SECONDS = 2e-10         # per 2D unit and grid cell
+PROBE_CELL_SECONDS = 8e-11   # what a probe pays per grid cell to set up, before any walk
+PILOT_UNITS = 48             # units a pilot estimate probes when probing all of them would cost
 DEFAULT_BUDGET_HOURS = 24.0
 
 
@@ -39,11 +47,22 @@ def decider_bits(names) -> int:
 class Estimate:
     nodes: float
     steps: float
+    dims: int = 1
+    symbols: int = 2
+    units: int = 0                # work units the build runs
+    cells: int = 0                # grid cells each unit sets up
+    probed: int | None = None     # units the walks probed (None: all; fewer for a pilot)
 
     @property
     def seconds(self) -> float:
         """Single-core seconds."""
-        return self.steps / STEPS_PER_SECOND + self.nodes / NODES_PER_SECOND
+        rate = STEPS_PER_SECOND if self.dims == 1 else STEPS_PER_SECOND_2D
+        per_unit = UNIT_SECONDS + (CELL_SECONDS * self.cells if self.dims == 2 else 0.0)
+        return self.steps / rate + self.nodes * self.symbols / 2 / NODES_PER_SECOND + self.units * per_unit
+
+
+def _grid_cells(space: Space, cap: int) -> int:
+    return 2 * cap + 3 if space.dims == 1 else (2 * cap + 3) ** 2
 
 
 def _check_run(space: Space, cap: int) -> None:
@@ -68,20 +87,36 @@ def plan(space: Space, cap: int, depth: int | None = None, deciders=ALL_DECIDERS
 
 
 def estimate(space: Space, cap: int, deciders=ALL_DECIDERS, walks: int = 20_000, seed: int = 1,
-             at: Plan | None = None) -> Estimate:
+             at: Plan | None = None, enough: float | None = None) -> Estimate:
     """Cost of an exhaustive build: the top of the tree exactly, then Knuth's
     random-walk estimate (Math. Comp. 29, 1975) inside every unit, which keeps
     the variance far below that of walks from the root. `at`: a plan at the
-    default depth already made, so it is not made twice."""
+    default depth already made, so it is not made twice. `enough`: seconds below
+    which a pilot over PILOT_UNITS evenly spaced units will do, when probing every
+    unit would itself cost much (2D: each probe sets up the whole grid)."""
     p = at if at is not None else plan(space, cap, None, deciders)
     bits = decider_bits(deciders)
     per_unit = max(4, walks // max(1, len(p.units)))
-    nodes, steps = float(p.top["halting_nodes"]), float(p.top["steps"])
-    for u in p.units:
-        en, es = _core.probe(space.dims, space.states, space.symbols, cap, bits, seed + u.index, per_unit,
-                             u.prefix)
-        nodes, steps = nodes + en, steps + es
-    return Estimate(nodes, steps)
+    cells = _grid_cells(space, cap)
+
+    def probe_all(units) -> Estimate:
+        nodes = steps = 0.0
+        for u in units:
+            en, es = _core.probe(space.dims, space.states, space.symbols, cap, bits, seed + u.index, per_unit,
+                                 u.prefix)
+            nodes, steps = nodes + en, steps + es
+        scale = len(p.units) / len(units) if units else 1.0
+        return Estimate(float(p.top["halting_nodes"]) + scale * nodes, float(p.top["steps"]) + scale * steps,
+                        space.dims, space.symbols, p.count, cells,
+                        None if len(units) == len(p.units) else len(units))
+
+    costly = len(p.units) * cells * PROBE_CELL_SECONDS > 0.05
+    if enough is not None and costly and len(p.units) > PILOT_UNITS:
+        step = len(p.units) / PILOT_UNITS
+        pilot = probe_all([p.units[int(i * step)] for i in range(PILOT_UNITS)])
+        if pilot.seconds <= enough:
+            return pilot
+    return probe_all(p.units)
 
 
 def build(
@@ -106,6 +141,9 @@ def build(
     every split, executor, shard merge and resume. on_progress(done, total,
     weight_done, weight_total, steps) is called as units finish."""
     _prepare(space, cap)
+    if budget_hours is not None and not (isinstance(budget_hours, (int, float)) and 0 < budget_hours < math.inf):
+        raise SpaceError(f"the budget must be a positive number of CPU-hours, got {budget_hours!r}; "
+                         "give e.g. --budget-hours 24")
     if shard is not None:
         i, n = shard
         if not (isinstance(i, int) and isinstance(n, int) and n >= 1 and 0 <= i < n):
@@ -117,8 +155,9 @@ def build(
     # whole tree as its top) is planned only after the estimate has let the build through.
     p = plan(space, cap, None, deciders) if split_depth in (None, default_depth(space)) else None
     if budget_hours is not None:
-        est = estimate(space, cap, deciders, at=p)
         share = 1 if shard is None else shard[1]
+        # a pilot estimate decides when it is far below the budget (a factor 4 of room)
+        est = estimate(space, cap, deciders, at=p, enough=min(600.0, budget_hours * 3600 / 4) * share)
         if est.seconds / share > budget_hours * 3600:
             raise TooLargeError(
                 f"an exhaustive {space.label} build at cap {cap} is estimated at "
@@ -128,8 +167,8 @@ def build(
     if p is None:
         p = plan(space, cap, split_depth, deciders)
     chosen = p.select(shard)
-    store = Spool(spool, p) if spool else None
-    results = store.finished(chosen) if store else {}
+    store = _exhaustive_spool(spool, p, chosen) if spool else None
+    results = store.finished() if store else {}
     resumed = len(results)
     part = Partial()
     weight_total = sum(p.unit(k).weight for k in chosen)
@@ -148,17 +187,16 @@ def build(
 
     for index, result in sorted(results.items()):
         accept(index, result)
-    if 0 in chosen and 0 not in results:
-        if store:
-            store.save(0, p.top)
+    if 0 in chosen and 0 not in results:  # the plan computed the top already: never spooled
         accept(0, p.top)
     bits = decider_bits(deciders)
     tasks = [(space.dims, space.states, space.symbols, cap, bits, k, p.unit(k).prefix)
              for k in chosen if k != 0 and k not in results]
-    for index, result in executors.stream(tasks, workers, scheduler):
-        if store:
-            store.save(index, result)
-        accept(index, result)
+    with kept(store):
+        for index, result in executors.stream(tasks, workers, scheduler):
+            if store:
+                store.save(index, result)
+            accept(index, result)
     tally = Tally.from_partial(
         space, cap, part, deciders=tuple(deciders), units=p.count,
         covered=None if shard is None else chosen, weight=weight_total,
@@ -166,7 +204,19 @@ def build(
     )
     tally.seconds = time.perf_counter() - t0
     tally.resumed = resumed
+    tally.spool_damaged = store.damaged if store else 0
     return tally
+
+
+def _exhaustive_spool(folder, p: Plan, chosen) -> Spool:
+    """The spool of an exhaustive build: units of this plan (and shard), sealed by their prefix."""
+    wanted = set(chosen)
+
+    def expect(index):
+        return (p.unit(index).uid, p.unit(index).weight) if index in wanted and index != 0 else None
+
+    return Spool(folder, {"kind": "exhaustive", "plan": p.ident, "space": p.space.to_dict(), "cap": p.cap,
+                          "units": p.count}, expect)
 
 
 SAMPLE_UNIT = 25_000  # samples per work unit: the result never depends on the worker count
@@ -229,11 +279,12 @@ def worst_error(space: Space, part: Partial, size: int, prior: Tally | None = No
 
 def sample(space: Space, cap: int, samples: int | None, *, seed: int = 1, deciders=ALL_DECIDERS,
            workers: int = 1, scheduler: str | None = None, until: Target | None = None,
-           prior: Tally | None = None, on_progress=None) -> Tally:
+           prior: Tally | None = None, spool: str | None = None, on_progress=None) -> Tally:
     """Run machines drawn uniformly from the full space (DESIGN.md section 4): `samples` of them,
     or fewer when `until` is met first. Reproducible from the seed, whatever the worker count:
     the samples are always whole work units 0..K-1 of the seed's stream. prior: the sampled
-    tally these samples will extend, so that an error target counts its samples too."""
+    tally these samples will extend, so that an error target counts its samples too. spool: a
+    folder keeping finished units, as in build(), so a killed build resumes."""
     _check_run(space, cap)
     if samples is not None and (not isinstance(samples, int) or samples < 1):
         raise SpaceError(f"--sample needs a positive number of machines, got {samples!r}")
@@ -251,21 +302,34 @@ def sample(space: Space, cap: int, samples: int | None, *, seed: int = 1, decide
     def count_of(k: int) -> int:
         return SAMPLE_UNIT if samples is None else min(SAMPLE_UNIT, samples - k * SAMPLE_UNIT)
 
-    part, done, steps, drawn = Partial(), 0, 0, 0
+    def expect(index):  # only whole units are spooled: a unit is fixed by (seed, index) alone
+        ok = type(index) is int and 0 <= index < limit and count_of(index) == SAMPLE_UNIT
+        return (str(index), SAMPLE_UNIT) if ok else None
+
+    store = Spool(spool, {"kind": "sample", "space": space.to_dict(), "cap": cap, "deciders": bits,
+                          "seed": seed, "unit": SAMPLE_UNIT}, expect) if spool else None
+    spooled = store.finished() if store else {}
+    part, done, steps, drawn, resumed = Partial(), 0, 0, 0, set()
     worst, stopped = math.nan, "count"
     shown = "" if until.error is None else f"worst rel. error ? at size {until.size}"
-    with executors.Runner(workers if limit > 1 else 1, scheduler) as runner:
+    with kept(store), executors.Runner(workers if limit > 1 else 1, scheduler) as runner:
         while done < limit:
             # Rounds whose ends depend on the units done alone, so an error target stops every
             # worker count at the same unit; a plain count runs as one round.
             end = limit if until == Target() else min(limit, done + max(8, done // 8))
+            finished = {k: spooled.pop(k) for k in range(done, end) if k in spooled}
+            resumed |= set(finished)
             tasks = [(space.dims, space.states, space.symbols, cap, bits, k, unit_seed(seed, k), count_of(k))
-                     for k in range(done, end)]
-            finished, late, running = {}, False, drawn
+                     for k in range(done, end) if k not in finished]
+            late = False
+            steps += sum(r["steps"] for r in finished.values())
+            running = drawn + sum(count_of(k) for k in finished)
             results = runner.stream(tasks, executors.run_sample_task)
             try:
                 for index, result in results:
                     finished[index] = result
+                    if store and count_of(index) == SAMPLE_UNIT:
+                        store.save(index, result)
                     steps += result["steps"]
                     running += count_of(index)
                     if on_progress:
@@ -294,6 +358,8 @@ def sample(space: Space, cap: int, samples: int | None, *, seed: int = 1, decide
                          "give --until more time")
     tally = Tally.from_sample(space, cap, part, drawn, seed, deciders=tuple(deciders), units=done)
     tally.seconds = time.perf_counter() - t0
+    tally.resumed = sum(1 for k in resumed if k < done)
+    tally.spool_damaged = store.damaged if store else 0
     if until != Target():
         tally.until = {"error": until.error, "size": until.size, "seconds": until.seconds,
                        "stopped_by": stopped, "worst_relative_error": None if math.isnan(worst) else worst}

@@ -4,10 +4,12 @@ addition, so the order never matters."""
 from __future__ import annotations
 
 import os
-from concurrent.futures import ProcessPoolExecutor, as_completed
+import signal
+import sys
+import threading
 
 from ..errors import CtmtabError
-from . import _core
+from .native import core as _core
 
 
 def run_task(task: tuple) -> tuple:
@@ -34,18 +36,32 @@ class Runner:
 
     def __init__(self, workers: int = 1, scheduler: str | None = None):
         self.workers, self.scheduler = workers, scheduler
-        self.pool = self.client = None
+        self.pool = self.client = self._sigterm = None
 
     def __enter__(self):
         if self.scheduler:
             self.client = _dask_client(self.scheduler)
         elif self.workers > 1:
-            self.pool = ProcessPoolExecutor(max_workers=self.workers)
+            from concurrent.futures import ProcessPoolExecutor  # here: an inline build never pays for it
+
+            self.pool = ProcessPoolExecutor(max_workers=self.workers, initializer=_worker_init,
+                                            initargs=(os.getpid(),))
+            self._sigterm = _on_sigterm_exit()
         return self
 
-    def __exit__(self, *exc):
+    def __exit__(self, kind, *exc):
         if self.pool is not None:
-            self.pool.shutdown(wait=True, cancel_futures=True)
+            manager = getattr(self.pool, "_executor_manager_thread", None)
+            if kind is not None:  # killed, interrupted or failed: stop the workers now, not after their units
+                for proc in list((getattr(self.pool, "_processes", None) or {}).values()):
+                    proc.terminate()
+            self.pool.shutdown(wait=kind is None, cancel_futures=True)
+            if kind is not None and manager is not None:
+                # let the pool's manager thread see the dead workers and close down, or Python's
+                # exit hook races it into an "Exception ignored" traceback (CPython < 3.12)
+                manager.join(timeout=5)
+            if self._sigterm is not None:
+                signal.signal(signal.SIGTERM, self._sigterm)
         if self.client is not None:
             self.client.close()
 
@@ -57,6 +73,8 @@ class Runner:
             futures = self.client.map(fn, tasks, pure=False)
             done = dask_completed(futures)
         elif self.pool is not None:
+            from concurrent.futures import as_completed
+
             futures = [self.pool.submit(fn, t) for t in tasks]
             done = as_completed(futures)
         else:
@@ -69,6 +87,36 @@ class Runner:
         finally:
             for f in futures:
                 f.cancel()
+
+
+def _worker_init(parent: int) -> None:
+    """In each pool worker: die with the parent, even when it is SIGKILLed (Linux), instead of
+    running on under PID 1; and take SIGTERM's default, not the parent's handler."""
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, signal.SIGKILL, 0, 0, 0)  # PR_SET_PDEATHSIG = 1
+        except (OSError, AttributeError):
+            pass
+    if os.getppid() != parent:  # the parent died before the prctl took hold
+        os._exit(1)
+
+
+def _on_sigterm_exit():
+    """Make SIGTERM end a parallel build through the normal exit path, so Runner.__exit__ stops
+    the workers; returns the handler to restore, or None if another handler is in place."""
+    if threading.current_thread() is not threading.main_thread():
+        return None
+    if signal.getsignal(signal.SIGTERM) is not signal.SIG_DFL:
+        return None
+
+    def terminated(signum, frame):
+        raise SystemExit(128 + signum)
+
+    return signal.signal(signal.SIGTERM, terminated)
 
 
 def _dask_client(address: str):

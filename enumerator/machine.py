@@ -3,15 +3,16 @@ and its run. `1RB1LC_1RC1RB_...`: one group per state, one write/move/next
 triple per symbol read; next state A, B, ...; Z halts; `---` is undefined."""
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import NotationError
-from . import _core
+from ..errors import NotationError, SpaceError, TooLargeError
+from .native import core as _core
 
 HALT_LETTER = "Z"
-STATUS = {0: "halted", 1: "capped", 2: "undefined"}
+STATUS = {0: "halted", 1: "capped", 2: "undefined"}  # and "escapes", found here in Python
 
 
 @dataclass(frozen=True)
@@ -86,7 +87,7 @@ class Machine:
 
 @dataclass(frozen=True)
 class Run:
-    status: str        # halted, capped or undefined
+    status: str        # halted, capped, undefined or escapes (never halts)
     steps: int         # transitions executed, the halting one included
     nonblank: int      # cells not holding the blank at the end
     output: bytes      # the visited span, left to right
@@ -98,14 +99,38 @@ class Run:
         return "".join(str(s) for s in self.output)
 
 
-def run(machine: Machine | str, max_steps: int, blank: int = 0) -> Run:
-    """Run one 1D machine from a blank tape for at most max_steps steps."""
-    if isinstance(machine, str):
-        machine = Machine.parse(machine)
-    if not 0 <= blank < machine.symbols:
-        raise NotationError(f"blank {blank} is not a symbol of this machine (0..{machine.symbols - 1})")
-    if max_steps < 0:
-        raise NotationError(f"max steps must be 0 or more, got {max_steps}")
+# A run's visited cells are bounded so that `run` cannot take the memory of the host: the core
+# doubles its tape as the head moves on, so a machine that keeps heading into fresh cells would
+# otherwise allocate about 2 bytes per step (2 GB at a cap of 10^9).
+RUN_CELLS = 1 << 28
+FIRST_CHUNK = 256  # steps of the first try; each later try runs GROWTH times as far
+GROWTH = 8  # (the tries restart from blank: they cost at most 1/7 more than one run)
+MAX_RUN_STEPS = (1 << 64) - 1  # the core counts steps in 64 bits
+
+
+def _runs_off(machine: Machine, state: int, symbol: int, side: int, blank: int) -> int:
+    """At the `side` edge (+1 right, -1 left) of the visited cells, in `state`, reading `symbol`:
+    the steps until the machine provably runs off that side forever (moving that way onto fresh
+    blanks, in a cycle of states), or 0 if it does not. The escapee argument of the deciders."""
+    m, seen, steps = machine.symbols, set(), 0
+    while True:
+        e = state * m + symbol
+        if machine.next[e] < 0 or machine.move[e] != side:
+            return 0
+        state, symbol, steps = machine.next[e], blank, steps + 1
+        if state in seen:
+            return steps
+        seen.add(state)
+
+
+def _edge_escape(machine: Machine, r: "Run", blank: int) -> bool:
+    for side, at_edge in ((-1, r.head == 0), (1, r.head == len(r.output) - 1)):
+        if at_edge and _runs_off(machine, r.state, r.output[r.head], side, blank):
+            return True
+    return False
+
+
+def _core_run(machine: Machine, max_steps: int, blank: int) -> Run:
     status, steps, state, nonblank, output, head = _core.run_machine(
         machine.states,
         machine.symbols,
@@ -116,3 +141,39 @@ def run(machine: Machine | str, max_steps: int, blank: int = 0) -> Run:
         max_steps,
     )
     return Run(STATUS[status], steps, nonblank, output, head, state)
+
+
+def run(machine: Machine | str, max_steps: int, blank: int = 0) -> Run:
+    """Run one 1D machine from a blank tape for at most max_steps steps. Status 'escapes': by
+    `steps` the run provably heads into blank cells forever (it never halts), so it was stopped.
+    A machine whose tape would grow past RUN_CELLS cells before max_steps is refused
+    (TooLargeError), judged by its growth in the tries so far, which start short."""
+    if isinstance(machine, str):
+        machine = Machine.parse(machine)
+    if not 0 <= blank < machine.symbols:
+        raise NotationError(f"blank {blank} is not a symbol of this machine (0..{machine.symbols - 1})")
+    if not isinstance(max_steps, int) or isinstance(max_steps, bool) or not 0 <= max_steps <= MAX_RUN_STEPS:
+        raise SpaceError(f"max steps must be a whole number from 0 to 2^64 - 1, got {max_steps!r}")
+    first = machine.move[blank] and _runs_off(machine, 0, blank, machine.move[blank], blank)
+    limit = min(max_steps, first or FIRST_CHUNK)
+    before = (0, 1)  # (steps, visited cells) of the previous try
+    while True:
+        r = _core_run(machine, limit, blank)
+        if r.status != "capped":
+            return r
+        if _edge_escape(machine, r, blank):
+            return dataclasses.replace(r, status="escapes")
+        if limit == max_steps:
+            return r
+        nxt = min(max_steps, GROWTH * limit)
+        if nxt < RUN_CELLS:  # a run visits at most steps + 1 cells
+            before, limit = (r.steps, len(r.output)), nxt
+            continue
+        pace = (len(r.output) - before[1]) / max(1, r.steps - before[0])  # new cells per step lately
+        if len(r.output) + pace * (nxt - limit) > RUN_CELLS:
+            safe = limit + int((RUN_CELLS - len(r.output)) / pace) if pace > 0 else limit
+            raise TooLargeError(
+                f"the tape grew to {len(r.output):,} cells in {r.steps:,} steps; at that pace a run of "
+                f"{max_steps:,} steps would pass the limit of {RUN_CELLS:,} cells ({RUN_CELLS >> 20} MiB); "
+                f"give --max-steps {max(safe, limit)} or fewer")
+        before, limit = (r.steps, len(r.output)), nxt

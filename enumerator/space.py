@@ -70,7 +70,9 @@ class Space:
             )
 
     def check_countable(self) -> None:
-        """Refuse a space whose exact counts would not fit the core's 128 bits."""
+        """Refuse a space whose exact counts would not fit the core's 128 bits. Exhaustive builds
+        only: a sampled build counts samples, so any space with at most MAX_ENTRIES entries can be
+        sampled."""
         self.check_entries()
         if (self.size * 8 * self.symbols).bit_length() > COUNT_BITS:
             raise TooLargeError(

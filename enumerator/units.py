@@ -9,7 +9,7 @@ from dataclasses import dataclass
 import msgpack
 
 from ..errors import SpaceError
-from . import _core
+from .native import core as _core
 from .space import Space
 
 # Index 0 is the top of the tree (everything above the cut); 1..N are subtrees.
@@ -98,17 +98,30 @@ INT_FIELDS = ("halting", "non_halting", "undecided", "halting_nodes", "longest_r
 
 
 def dump_result(result: dict) -> bytes:
-    rec = {k: _enc(result[k]) for k in INT_FIELDS}
-    rec["raw"] = [[k, _enc(v)] for k, v in sorted(result["raw"].items())]
-    rec["hist_steps"] = [_enc(v) for v in result["hist_steps"]]
-    rec["hist_len"] = [_enc(v) for v in result["hist_len"]]
+    """Every field of a result: integers, lists of integers, and the raw map of bytes to integers
+    (a map so that fields the core gains later travel too)."""
+    rec = {}
+    for name, v in result.items():
+        if isinstance(v, dict):
+            rec[name] = {"pairs": [[k, _enc(x)] for k, x in sorted(v.items())]}
+        elif isinstance(v, (list, tuple)):
+            rec[name] = [_enc(x) for x in v]
+        else:
+            rec[name] = _enc(v)
     return msgpack.packb(rec, use_bin_type=True)
 
 
 def load_result(data: bytes) -> dict:
     rec = msgpack.unpackb(data, raw=False, strict_map_key=True)
-    out = {k: _dec(rec[k]) for k in INT_FIELDS}
-    out["raw"] = {bytes(k): _dec(v) for k, v in rec["raw"]}
-    out["hist_steps"] = [_dec(v) for v in rec["hist_steps"]]
-    out["hist_len"] = [_dec(v) for v in rec["hist_len"]]
+    out = {}
+    for name, v in rec.items():
+        if isinstance(v, dict):
+            out[name] = {bytes(k): _dec(x) for k, x in v["pairs"]}
+        elif isinstance(v, list):
+            out[name] = [_dec(x) for x in v]
+        else:
+            out[name] = _dec(v)
+    for name in INT_FIELDS + ("raw", "hist_steps", "hist_len"):  # a record missing one is damaged
+        if name not in out:
+            raise ValueError(f"no {name}")
     return out

@@ -4,7 +4,8 @@
     header    msgpack map, at most MAX_HEADER bytes, readable without the body
     body      zstd-compressed msgpack map of columnar little-endian arrays
 
-Every read is bounded and checked before anything is allocated or decompressed."""
+Every read is bounded and checked before anything is allocated or decompressed; the body is
+decompressed and decoded as one stream, so reading takes about READ_PEAK times its raw size."""
 from __future__ import annotations
 
 import hashlib
@@ -23,7 +24,7 @@ MAGIC = b"\x8cCTMTAB\x1a"
 MAJOR, MINOR = 1, 2  # 1.1 added sampled tables (header "sample", group "moments"); 1.2 sample "streams"
 PREAMBLE = struct.Struct("<8sHHIQ32s")  # magic, major, minor, header len, body len, header sha256
 MAX_HEADER = 1 << 20
-MAX_BODY = 1 << 31  # default cap on the decompressed body; load(max_body=...) changes it
+MAX_BODY = 1 << 31  # default cap on the decompressed body (and READ_PEAK x it must be free); load(max_body=...)
 ZSTD_LEVEL = 12
 
 
@@ -98,33 +99,103 @@ def read_header(data: bytes, where: str = "table") -> tuple[dict, int]:
     return header, PREAMBLE.size + head_len
 
 
-def read_body(data: bytes, header: dict, offset: int, max_body: int = MAX_BODY, where: str = "table") -> dict:
-    """Verify the body checksum, then decompress within the declared size."""
+def compressed_bound(raw_size: int) -> int:
+    """The most bytes zstd needs for raw_size bytes (ZSTD_compressBound, plus slack)."""
+    return raw_size + (raw_size >> 7) + 1024
+
+
+READ_PEAK = 2  # memory while reading, per decompressed body byte: the unpacked arrays and one chunk
+
+
+def available_memory() -> int | None:
+    """Bytes this process may still allocate: MemAvailable, or less under a cgroup limit; None
+    where neither is known."""
+    found = []
+    try:
+        with open("/proc/meminfo") as f:
+            found += [int(line.split()[1]) * 1024 for line in f if line.startswith("MemAvailable:")]
+    except (OSError, ValueError, IndexError):
+        pass
+    try:
+        with open("/sys/fs/cgroup/memory.max") as f:
+            top = f.read().strip()
+        if top.isdigit():
+            with open("/sys/fs/cgroup/memory.current") as f:
+                found.append(max(0, int(top) - int(f.read().strip())))
+    except (OSError, ValueError):
+        pass
+    return min(found) if found else None
+
+
+class _Bounded:
+    """A read() over a decompressing stream that never yields more than `left` bytes in all."""
+
+    def __init__(self, reader, left: int):
+        self.reader, self.left, self.done = reader, left, 0
+
+    def read(self, n: int = -1) -> bytes:
+        n = self.left if n is None or n < 0 else min(n, self.left)
+        data = self.reader.read(n) if n else b""
+        self.left -= len(data)
+        self.done += len(data)
+        return data
+
+
+def read_body(data: bytes, header: dict, offset: int, max_body: int = MAX_BODY, where: str = "table",
+              expect: tuple[int, int] | None = None) -> dict:
+    """Verify the body checksum, then decompress and decode it as one stream, never holding more
+    than the declared size. expect: the (fewest, most) raw bytes the header allows (load.body_bounds)."""
     info = header.get("body")
     if not isinstance(info, dict) or info.get("codec") != "zstd":
         raise TableError(f"{where}: the header does not describe a zstd body; the file is not a ctmtab table")
     raw_size, digest = info.get("raw_size"), info.get("sha256")
-    if not isinstance(raw_size, int) or raw_size < 0 or not isinstance(digest, str):
+    if not isinstance(raw_size, int) or isinstance(raw_size, bool) or raw_size < 1 or not isinstance(digest, str):
         raise TableError(f"{where}: the header's body size or checksum is malformed")
     if raw_size > max_body:
         raise SizeLimitError(
             f"{where}: the body declares {raw_size} bytes decompressed, over the limit of {max_body}; "
             "pass a larger max_body if you trust this file"
         )
+    if expect is not None and not expect[0] <= raw_size <= expect[1]:
+        raise InconsistentTableError(
+            f"{where}: the body declares {raw_size} bytes decompressed, but the keys the header lists take "
+            f"{expect[0]} to {expect[1]}; the file is corrupt or hostile"
+        )
+    free = available_memory()
+    if free is not None and READ_PEAK * raw_size > free:
+        raise SizeLimitError(f"{where}: reading it needs about {READ_PEAK * raw_size >> 20} MiB of memory, and "
+                             f"{free >> 20} MiB is free; free some memory or read it on a larger machine")
     body = data[offset:]
     if hashlib.sha256(body).hexdigest() != digest:
         raise ChecksumError(f"{where}: the body checksum does not match; the file is corrupt, fetch it again")
+
+    def no_ext(code, _data):
+        raise TableError(f"the body holds a msgpack extension type {code}; the file is not a ctmtab table")
+
+    stream = _Bounded(zstandard.ZstdDecompressor().stream_reader(io.BytesIO(body)), raw_size + 1)
+    chunk = min(1 << 20, raw_size)
+    unpacker = msgpack.Unpacker(stream, read_size=chunk, max_buffer_size=max(raw_size, chunk), raw=False,
+                                strict_map_key=True, ext_hook=no_ext, timestamp=0)
     try:
-        reader = zstandard.ZstdDecompressor().stream_reader(io.BytesIO(body))
-        raw = reader.read(raw_size + 1)  # never more than declared plus one byte
+        out = unpacker.unpack()
+        used = unpacker.tell()
+        extra = stream.read(1) if used == raw_size else b""
     except zstandard.ZstdError as exc:
         raise TableError(f"{where}: the body does not decompress ({exc}); the file is corrupt") from None
-    if len(raw) != raw_size:
-        raise InconsistentTableError(
-            f"{where}: the body decompresses to {'more' if len(raw) > raw_size else len(raw)} bytes, "
-            f"not the declared {raw_size}; the file is corrupt or hostile"
-        )
-    out = _unpack(raw, "body")
+    except msgpack.OutOfData:
+        raise InconsistentTableError(f"{where}: the body ends after {stream.done} bytes, inside its table data, "
+                                     f"not at the declared {raw_size}; the file is corrupt or hostile") from None
+    except TableError as exc:
+        raise TableError(f"{where}: {exc}") from None
+    except (ValueError, TypeError, msgpack.UnpackException, RecursionError) as exc:
+        raise TableError(f"{where}: the body is not valid msgpack ({exc}); "
+                         "the file is corrupt, fetch it again") from None
     if not isinstance(out, dict):
         raise TableError(f"{where}: the body is not a map; the file is corrupt")
+    if used != raw_size or extra:
+        raise InconsistentTableError(
+            f"{where}: the body's table data " + (f"ends after {used} bytes" if used < raw_size else
+                                                  "runs on past its end") +
+            f", not the declared {raw_size}; the file is corrupt or hostile"
+        )
     return out

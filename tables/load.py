@@ -1,19 +1,28 @@
-"""Loading a table file: untrusted input, validated before use."""
+"""Loading a table file: untrusted input, validated before use.
+
+Order of work, so that no hostile file costs more than its honest size: stat (regular files
+only), read at most the file's size, the preamble and header checks (format.py), every header
+field's type and range (check_header), the declared body size against what the header's keys
+can take (body_bounds), then the body, streamed within that size, and the body's consistency."""
 from __future__ import annotations
 
 import math
 import os
+import stat
 from pathlib import Path
 
 import msgpack
 import numpy as np
 
-from ..errors import InconsistentTableError, TableError
+from ..enumerator.space import MAX_CAP, MAX_ENTRIES
+from ..enumerator.tally import FULL_RELABELLING_MAX
+from ..errors import InconsistentTableError, SizeLimitError, TableError
 from . import format as fmt
-from .arrays import U64, decode_counts
+from .arrays import U64, decode_counts, limbs_needed
 from .table import SHIPPED, Group, Table
 
 SUFFIX = ".ctmt"
+MAX_DIGITS = 400  # a total as a decimal string: the largest space (64 entries) has under 200 digits
 
 
 def shipped() -> list[str]:
@@ -23,7 +32,7 @@ def shipped() -> list[str]:
 
 def resolve(name_or_path) -> Path:
     path = Path(name_or_path)
-    if path.exists():
+    if path.exists() or path.is_symlink():  # a dangling link: stat names it
         return path
     names = shipped()
     matches = [n for n in names if n == str(name_or_path)] or [n for n in names if n.startswith(str(name_or_path))]
@@ -38,18 +47,60 @@ def resolve(name_or_path) -> Path:
 def load(name_or_path, *, max_body: int = fmt.MAX_BODY) -> Table:
     """Load a table by path, or by the name of a shipped table (see shipped())."""
     path = resolve(name_or_path)
-    with open(path, "rb") as f:
-        size = os.fstat(f.fileno()).st_size
-        if size > fmt.PREAMBLE.size + fmt.MAX_HEADER + max_body:
-            raise fmt.SizeLimitError(f"{path}: {size} bytes is larger than any table this reader accepts")
-        data = f.read()
-    return loads(data, max_body=max_body, where=str(path))
+    return loads(read_file(path, max_body), max_body=max_body, where=str(path))
+
+
+_KINDS = [(stat.S_ISDIR, "a folder"), (stat.S_ISFIFO, "a FIFO (named pipe)"), (stat.S_ISCHR, "a character device"),
+          (stat.S_ISBLK, "a block device"), (stat.S_ISSOCK, "a socket")]
+
+
+def _not_regular(path, mode: int) -> TableError:
+    kind = next((name for test, name in _KINDS if test(mode)), "not a regular file")
+    return TableError(f"{path} is {kind}, not a table file; give the path of a .ctmt file")
+
+
+def read_file(path, max_body: int = fmt.MAX_BODY) -> bytes:
+    """The bytes of a regular file, never more than its size nor than any table this reader
+    accepts. Devices, FIFOs, sockets and folders are refused before they are read: stat before
+    open, and the open never blocks (O_NONBLOCK), so a FIFO swapped in between is caught by fstat."""
+    st = os.stat(path)  # a missing file or a forbidden folder: the OSError the CLI reports
+    if not stat.S_ISREG(st.st_mode):
+        raise _not_regular(path, st.st_mode)
+    fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_CLOEXEC", 0))
+    try:
+        st = os.fstat(fd)
+        if not stat.S_ISREG(st.st_mode):
+            raise _not_regular(path, st.st_mode)
+        size = st.st_size
+        if size > fmt.PREAMBLE.size + fmt.MAX_HEADER + fmt.compressed_bound(max_body):
+            raise SizeLimitError(f"{path}: {size} bytes is larger than any table this reader accepts "
+                                 f"(max_body {max_body}); pass a larger max_body if you trust this file")
+        if size == 0:  # also what /proc and /sys files report: never read them
+            raise TableError(f"{path} is empty (0 bytes), not a table file; fetch it again")
+        chunks, left = [], size + 1  # one byte past the size tells a file that grew while read
+        while left > 0:
+            chunk = os.read(fd, min(left, 1 << 24))
+            if not chunk:
+                break
+            chunks.append(chunk)
+            left -= len(chunk)
+    except OSError as exc:
+        raise TableError(f"{path}: cannot be read ({exc.strerror or exc}); give a table file") from None
+    finally:
+        os.close(fd)
+    data = b"".join(chunks)
+    if len(data) != size:
+        raise TableError(f"{path} changed size while it was read ({size} bytes, then {len(data)}); "
+                         "read it again once it is complete")
+    return data
 
 
 def loads(data: bytes, *, max_body: int = fmt.MAX_BODY, where: str = "table") -> Table:
     header, offset = fmt.read_header(data, where)
-    body = fmt.read_body(data, header, offset, max_body, where)
     try:
+        check_header(header, where)
+        low, high = body_bounds(header)
+        body = fmt.read_body(data, header, offset, max_body, where, expect=(low, high))
         return _build(header, body, where)
     except TableError:
         raise
@@ -63,6 +114,141 @@ def _need(cond: bool, where: str, what: str) -> None:
         raise InconsistentTableError(f"{where}: {what}; the file is corrupt or was edited")
 
 
+def _int(v, low: int = 0, high: int | None = None) -> bool:
+    return isinstance(v, int) and not isinstance(v, bool) and v >= low and (high is None or v <= high)
+
+
+def _digits(v) -> bool:
+    return isinstance(v, str) and 0 < len(v) <= MAX_DIGITS and v.isascii() and v.isdigit()
+
+
+def _strs(v) -> bool:
+    return isinstance(v, list) and all(isinstance(x, str) for x in v)
+
+
+def _optional(header: dict, name: str, kind, where: str) -> dict:
+    """header[name] when present must be of this type ({} / "" stand in when absent)."""
+    value = header.get(name, kind())
+    _need(isinstance(value, kind), where, f"the header's {name!r} is a {type(value).__name__}, not a "
+          + {dict: "map", str: "string", list: "list"}[kind])
+    return value
+
+
+def fits_code64(m: int, cells: int) -> bool:
+    """m^cells <= 2^64, without computing the power of a hostile length."""
+    return cells <= 64 and m**cells <= 1 << 64
+
+
+def _key_width(m: int, cells: int) -> int:
+    return 8 if fits_code64(m, cells) else cells
+
+
+def images_per_sample(dims: int, m: int, relabelling: str) -> int:
+    """What tally.images_per_sample gives a sampled table of this relabelling (1.1 files: blank swaps)."""
+    return (2 if dims == 1 else 8) * (math.factorial(m) if relabelling == "all" else m)
+
+
+def check_header(header: dict, where: str = "table") -> None:
+    """Every header field the reader, info, merge and verify use, by type and range, before any
+    work that depends on one: a hostile header re-sealed with a valid checksum stops here."""
+    _need(header.get("kind") == "ctmtab-table", where, "the header is not a ctmtab table's ('kind')")
+    space = header.get("space")
+    _need(isinstance(space, dict), where, "the header has no space")
+    dims, n, m = space.get("dims"), space.get("states"), space.get("symbols")
+    _need(dims in (1, 2) and _int(n, 1, MAX_ENTRIES) and _int(m, 2, 255) and n * m <= MAX_ENTRIES,
+          where, f"the header's space is malformed (dims 1 or 2, states x symbols at most {MAX_ENTRIES})")
+    cap = header.get("cap")
+    _need(_int(cap, 1, MAX_CAP), where, f"the header's cap or mode is malformed (cap 1..{MAX_CAP})")
+    mode = header.get("mode")
+    _need(mode in ("exhaustive", "sampled"), where, "the header's cap or mode is malformed")
+    totals = header.get("totals")
+    _need(isinstance(totals, dict), where, "the header has no totals")
+    for name in ("space_size", "halting", "non_halting", "undecided"):
+        _need(_digits(totals.get(name)), where, f"the header total {name!r} is missing or not a whole number")
+    for name in ("formalism", "invariant", "notes"):
+        _optional(header, name, str, where)
+    blanks = _optional(header, "blanks", list, where)
+    _need(all(_int(b, 0, m - 1) for b in blanks), where, "the header's blanks are not symbols of the space")
+    for name in ("symmetries", "deciders"):
+        _need(_strs(_optional(header, name, list, where)), where, f"the header's {name} are not strings")
+    stats = _optional(header, "stats", dict, where)
+    for name in ("halting_nodes", "longest_run", "most_nonblank", "steps_simulated"):
+        _need(name not in stats or _int(stats[name]), where, f"the header's stats {name!r} is not a count")
+    units = _optional(header, "units", dict, where)
+    count = units.get("count", 1)
+    _need(_int(count, 1) and _int(units.get("depth", 0)) and isinstance(units.get("plan", ""), str)
+          and _digits(units.get("weight", "0")), where, "the header's units are malformed")
+    covered, shard = units.get("covered", "all"), units.get("shard")
+    _need(covered == "all" or (isinstance(covered, list) and all(_int(k, 0, count - 1) for k in covered)),
+          where, "the header's covered units are malformed")
+    _need(shard is None or (isinstance(shard, list) and len(shard) == 2 and _int(shard[1], 1)
+                            and _int(shard[0], 0, shard[1] - 1)), where, "the header's shard is malformed")
+    generator = _optional(header, "generator", dict, where)
+    _need(all(isinstance(v, str) for v in generator.values()), where, "the header's generator is malformed")
+    build = _optional(header, "build", dict, where)
+    for name in ("command", "created", "by"):
+        _need(isinstance(build.get(name, ""), str), where, f"the header's build {name!r} is not a string")
+    seconds = build.get("seconds", 0)
+    _need(isinstance(seconds, (int, float)) and not isinstance(seconds, bool) and math.isfinite(seconds)
+          and seconds >= 0, where, "the header's build seconds is not a time")
+    _need(_int(build.get("resumed_units", 0)) and isinstance(build.get("workers", 0), (int, str))
+          and isinstance(build.get("until", {}), dict), where, "the header's build record is malformed")
+    extended = build.get("extended", {})
+    _need(isinstance(extended, dict) and isinstance(extended.get("from", ""), str)
+          and _strs(extended.get("commands", [])), where, "the header's build 'extended' is malformed")
+    if mode == "sampled":
+        sample = header.get("sample")
+        _need(isinstance(sample, dict) and _int(sample.get("size"), 1) and _int(sample.get("images_per_sample"), 1),
+              where, "a sampled table without its sample size")
+        relab = sample.get("relabelling", "blank-swaps")
+        _need(relab == "blank-swaps" or (relab == "all" and m <= FULL_RELABELLING_MAX), where,
+              f"the sample's relabelling {relab!r} is not 'all' (m <= {FULL_RELABELLING_MAX}) or 'blank-swaps'")
+        # either expansion: 1.1 files took the blank swaps whatever m (merge.check_expansion tells them)
+        _need(sample["images_per_sample"] in {images_per_sample(dims, m, r) for r in ("blank-swaps", relab)}, where,
+              f"the sample's images_per_sample {sample['images_per_sample']} is not what a symmetry expansion gives")
+        _need(sample.get("halting_samples", int(totals["halting"])) == int(totals["halting"]), where,
+              "the sample's halting_samples contradicts the halting total")
+    keys = header.get("keys")
+    _need(isinstance(keys, dict) and isinstance(keys.get("groups"), list), where, "the header has no key summary")
+    last = None
+    for entry in keys["groups"]:
+        _need(isinstance(entry, list) and len(entry) == 2 and isinstance(entry[0], list), where,
+              "the header's key summary is malformed")
+        shape, k = entry
+        # a run that halts within the cap visits at most cap cells along any side
+        _need(len(shape) == dims and all(_int(s, 1, cap + 1) for s in shape), where,
+              f"the header's key summary lists a shape {shape!r} that no run within cap {cap} can write")
+        cells = math.prod(shape)
+        _need(_int(k, 1) and (not fits_code64(m, cells) or k <= m**cells), where,
+              f"the header's key summary lists a bad key count for shape {shape}")
+        _need(last is None or shape > last, where, "the header's key summary is not sorted by shape")
+        last = shape
+    _need(keys.get("distinct") == sum(k for _, k in keys["groups"]), where,
+          "the header's key summary does not add up to its distinct count")
+
+
+def body_bounds(header: dict) -> tuple[int, int]:
+    """The fewest and the most decompressed body bytes the header's key summary and totals
+    allow. Keys take 8 (codes) or one per cell (symbols); no count exceeds the counts' sum
+    (blanks or images times halting), no moment that times the images, no histogram entry the
+    halting total; msgpack adds at most a few dozen bytes per group."""
+    m, dims = header["space"]["symbols"], header["space"]["dims"]
+    halting = int(header["totals"]["halting"])
+    per_run = header["sample"]["images_per_sample"] if header["mode"] == "sampled" else m
+    count_limbs = limbs_needed([per_run * halting])
+    moment_limbs = limbs_needed([per_run * per_run * halting]) if header["mode"] == "sampled" else 0
+    low, high = 0, 256
+    longest = 0
+    for shape, k in header["keys"]["groups"]:
+        width = _key_width(m, math.prod(shape))
+        longest = max(longest, max(shape))
+        low += k * (width + 8 + (8 if moment_limbs else 0))
+        high += k * (width + 8 * (count_limbs + moment_limbs)) + 256
+    hist_limbs = limbs_needed([halting])
+    high += (header["cap"] + 1 + longest + 1) * 8 * hist_limbs + 256
+    return low, high
+
+
 def _array_bytes(spec, n: int, width: int, where: str, what: str) -> bytes:
     _need(isinstance(spec, dict) and isinstance(spec.get("data"), bytes), where, f"{what} has no data")
     _need(len(spec["data"]) == n * width, where, f"{what} holds {len(spec['data'])} bytes, not {n * width}")
@@ -70,69 +256,73 @@ def _array_bytes(spec, n: int, width: int, where: str, what: str) -> bytes:
 
 
 def _counts(spec, n: int, where: str, what: str) -> np.ndarray:
-    _need(isinstance(spec, dict) and isinstance(spec.get("limbs"), int) and 1 <= spec["limbs"] <= 64,
-          where, f"{what} has a bad limb count")
+    _need(isinstance(spec, dict) and _int(spec.get("limbs"), 1, 64), where, f"{what} has a bad limb count")
     _array_bytes(spec, n, 8 * spec["limbs"], where, what)
     return decode_counts(spec, n)
 
 
-def _hist(spec, where: str, what: str) -> list:
-    _need(isinstance(spec, dict) and isinstance(spec.get("n"), int) and 0 <= spec["n"] <= 10**8,
-          where, f"{what} is malformed")
+def _hist(spec, limit: int, where: str, what: str) -> list:
+    _need(isinstance(spec, dict) and _int(spec.get("n"), 0, limit), where, f"{what} is malformed")
     return [int(v) for v in _counts(spec, spec["n"], where, what)]
 
 
+def _rows_increasing(rows: np.ndarray) -> bool:
+    """Rows strictly increasing in lexicographic order, vectorised (no Python object per key)."""
+    if len(rows) < 2:
+        return True
+    a, b = rows[:-1], rows[1:]
+    differ = a != b
+    first = differ.argmax(axis=1)
+    at = np.arange(len(a))
+    return bool(differ[at, first].all() and (b[at, first] > a[at, first]).all())
+
+
 def _build(header: dict, body: dict, where: str) -> Table:
-    space = header.get("space")
-    _need(isinstance(space, dict), where, "the header has no space")
-    m, dims = space.get("symbols"), space.get("dims")
-    _need(isinstance(m, int) and 2 <= m <= 255 and dims in (1, 2), where, "the header's space is malformed")
+    m, dims = header["space"]["symbols"], header["space"]["dims"]
+    summary = {tuple(s): k for s, k in header["keys"]["groups"]}
     groups = {}
     raw_groups = body.get("groups")
     _need(isinstance(raw_groups, list), where, "the body has no key groups")
     for spec in raw_groups:
         _need(isinstance(spec, dict), where, "a key group is malformed")
         shape, n = spec.get("shape"), spec.get("n")
-        _need(isinstance(shape, list) and len(shape) == dims and all(isinstance(s, int) and 1 <= s <= 10**6
-              for s in shape), where, f"a key group has a bad shape {shape!r}")
-        _need(isinstance(n, int) and 0 < n, where, "a key group has a bad size")
+        _need(isinstance(shape, list) and tuple(shape) in summary, where,
+              f"a key group has a shape {shape!r} the header's key summary does not list")
         shape = tuple(shape)
+        _need(n == summary[shape], where, "the header's key summary contradicts the body")
         _need(shape not in groups, where, f"shape {shape} appears twice")
         size = math.prod(shape)
         keys = spec.get("keys")
         _need(isinstance(keys, dict), where, "a key group has no keys")
+        code64 = fits_code64(m, size)
+        _need(keys.get("kind") == ("code64" if code64 else "symbols"), where,
+              f"shape {shape} has an unknown key kind, or not the one its size takes")
         counts = _counts(spec.get("counts"), n, where, f"the counts of shape {shape}")
-        if keys.get("kind") == "code64":
-            _need(m**size <= 1 << 64, where, f"shape {shape} stores 64-bit codes that cannot hold it")
+        if code64:
             codes = np.frombuffer(_array_bytes(keys, n, 8, where, f"the keys of shape {shape}"), dtype=U64)
             _need(n == 1 or bool(np.all(codes[1:] > codes[:-1])), where, f"the keys of shape {shape} are not sorted")
             _need(int(codes[-1]) < m**size, where, f"a key of shape {shape} is out of range")
             g = Group(shape, codes, None, counts)
-        elif keys.get("kind") == "symbols":
+        else:
             raw = _array_bytes(keys, n, size, where, f"the keys of shape {shape}")
             rows = np.frombuffer(raw, dtype=np.uint8).reshape(n, size)
             _need(int(rows.max()) < m, where, f"a key of shape {shape} holds a symbol >= {m}")
-            srt = [raw[i * size:(i + 1) * size] for i in range(n)]
-            _need(all(a < b for a, b in zip(srt, srt[1:])), where, f"the keys of shape {shape} are not sorted")
+            _need(_rows_increasing(rows), where, f"the keys of shape {shape} are not sorted")
             g = Group(shape, None, rows, counts)
-        else:
-            raise InconsistentTableError(f"{where}: shape {shape} has an unknown key kind")
         _need(bool(np.all(counts > 0)) if counts.dtype != object else all(c > 0 for c in counts),
               where, f"shape {shape} holds a zero count")
         if header.get("mode") == "sampled":
             g.moments = _counts(spec.get("moments"), n, where, f"the moments of shape {shape}")
         groups[shape] = g
-    table = Table(header, groups, _hist(body.get("hist_steps"), where, "the step histogram"),
-                  _hist(body.get("hist_len"), where, "the length histogram"), source=where)
+    longest = max((max(s) for s in summary), default=0)
+    table = Table(header, groups, _hist(body.get("hist_steps"), header["cap"] + 1, where, "the step histogram"),
+                  _hist(body.get("hist_len"), longest + 1, where, "the length histogram"), source=where)
     _need(header.get("keys") == table._key_summary(), where, "the header's key summary contradicts the body")
     if table.mode == "sampled":
-        sample = header.get("sample")
-        _need(isinstance(sample, dict) and all(isinstance(sample.get(k), int) and sample[k] > 0
-                                               for k in ("size", "images_per_sample")),
-              where, "a sampled table without its sample size")
+        sample = header["sample"]
         streams = sample.get("streams", [[sample.get("seed"), sample["size"]]])  # 1.1 files: one stream
         _need(isinstance(streams, list) and len(streams) >= 1
-              and all(isinstance(x, list) and len(x) == 2 and all(isinstance(v, int) for v in x)
+              and all(isinstance(x, list) and len(x) == 2 and all(_int(v) for v in x)
                       and 0 <= x[0] < 1 << 63 and x[1] > 0 for x in streams),
               where, "the sample's streams are malformed")
         _need(sum(x[1] for x in streams) == sample["size"], where, "the sample's streams do not add up to its size")

@@ -3,9 +3,9 @@ dense views for estimators, verification, merging and export."""
 from __future__ import annotations
 
 import datetime
-import getpass
 import math
-import socket
+import operator
+import os
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -23,6 +23,8 @@ FORMALISM = "busy-beaver: entries MOVE(write, direction, next) or HALT(write); e
 MISSING_POLICIES = ("raise", "nan", "fallback")
 DEFAULT_MIN_SEEN = 10  # sampled keys seen fewer times than this draw a RareKeyWarning
 MAX_DENSE = 1 << 26  # keys in one dense view: 512 MiB of float64
+DENSE_LOOKUP = 1 << 20  # lookup() indexes a dense count array up to this many keys (8 MiB), else searches
+CACHE_BYTES = 256 << 20  # dense arrays kept across calls, at most; beyond, each call builds its own
 SHIPPED = Path(__file__).parent
 
 
@@ -51,6 +53,17 @@ def _int_total(header: dict, name: str) -> int:
     if not isinstance(value, str) or not value.isdigit():
         raise InconsistentTableError(f"the header total {name!r} is missing or not a whole number")
     return int(value)
+
+
+def symmetries(space: Space, mode: str) -> list[str]:
+    """The symmetries behind the counts, as the header lists them. Exhaustive builds search one
+    machine per class and weight it: mirror (1D) or dihedral (2D), blank swaps, state relabelling.
+    Sampled builds draw plain machines and add each output's images: mirror or dihedral, and the
+    symbol maps of tally.sample_perms (all m! permutations, or the m blank swaps)."""
+    shape = "mirror" if space.dims == 1 else "dihedral"
+    if mode == "sampled":
+        return [shape, "symbol-permutation" if relabelling(space.symbols) == "all" else "blank-swap"]
+    return [shape, "blank-swap", "state-relabelling"]
 
 
 class Table:
@@ -143,7 +156,7 @@ class Table:
                 "undecided": str(tally.undecided),
             },
             "invariant": "halting + non_halting + undecided = space_size; counts sum to blanks x halting",
-            "symmetries": ["mirror", "blank-swap", "state-relabelling"],
+            "symmetries": symmetries(tally.space, tally.mode),
             "deciders": list(tally.deciders),
             "stats": {
                 "halting_nodes": tally.halting_nodes,
@@ -259,12 +272,38 @@ class Table:
             else:
                 arr = np.array(parsed[0], dtype=np.int64)
         else:
-            arr = np.asarray(key)
+            try:
+                arr = np.asarray(key)
+            except (ValueError, TypeError):  # ragged rows
+                raise TableError(f"key {key!r} is not a {self.space.dims}D array of symbols") from None
         if arr.ndim != self.space.dims or arr.size == 0:
             raise TableError(f"key {key!r} is not a non-empty {self.space.dims}D array of symbols")
-        if arr.min() < 0 or arr.max() >= m:
-            raise TableError(f"key {key!r} holds a symbol outside 0..{m - 1}")
-        return tuple(arr.shape), arr.reshape(-1).astype(np.uint8)
+        return tuple(arr.shape), self._symbols(arr, f"key {key!r}").reshape(-1)
+
+    def _symbols(self, arr: np.ndarray, what: str) -> np.ndarray:
+        """arr as uint8 symbols, refusing non-integers and symbols outside 0..m-1 (one min and one
+        max, so a bad symbol never aliases another key's code)."""
+        m = self.space.symbols
+        if arr.dtype == bool:
+            arr = arr.astype(np.uint8)
+        elif not np.issubdtype(arr.dtype, np.integer):
+            raise TableError(f"{what} holds {arr.dtype} values; give integer symbols 0..{m - 1}")
+        if arr.size:
+            low, high = int(arr.min()), int(arr.max())
+            if low < 0 or high >= m:
+                raise TableError(f"{what} holds the symbol {low if low < 0 else high}, outside 0..{m - 1} "
+                                 f"of this {self.space.label} table; fix the key")
+        return arr.astype(np.uint8, copy=False)
+
+    def require_halting(self) -> None:
+        """Refuse a table where no run halted (it has no probabilities): one clear error, never
+        log2(0). Counts and info still work."""
+        if self.total == 0:
+            runs = (f"none of its {self.header['sample']['size']:,} samples" if self.mode == "sampled"
+                    else "no machine")
+            fix = "draw more samples (build --extend) or" if self.mode == "sampled" else "rebuild and"
+            raise TableError(f"{self.source}: {runs} halted within cap {self.cap}, so no key has a "
+                             f"probability or CTM; {fix} raise --max-steps")
 
     def key_text(self, shape: tuple, row: np.ndarray) -> str:
         sep = "" if self.space.symbols <= 10 else "."
@@ -300,6 +339,7 @@ class Table:
         return 0 if pos < 0 else int(self.groups[shape].counts[pos])
 
     def probability(self, key) -> float:
+        self.require_halting()
         c = self.count(key)
         self._warn_rare(key, c)
         return c / self.total
@@ -307,6 +347,7 @@ class Table:
     def fallback(self) -> float:
         """CTM for a key never produced under the 'fallback' policy: log2(total) + 1 bits,
         the value of half the smallest possible count, above every observed value."""
+        self.require_halting()
         return math.log2(self.total) + 1.0
 
     def _missing(self, key, missing: str) -> float:
@@ -324,6 +365,7 @@ class Table:
 
     def ctm(self, key, missing: str = "raise") -> float:
         """CTM(key) = -log2 D(key) in bits."""
+        self.require_halting()
         c = self.count(key)
         if c == 0:
             return self._missing(key, missing)
@@ -334,6 +376,7 @@ class Table:
         """Exhaustive tables: certified CTM bounds for an unbounded runtime (the true count lies
         in [c, c + U] and the true halting total in [H, H + U], U = undecided runs).
         Sampled tables: an approximate 95% interval from the standard error (not certified)."""
+        self.require_halting()
         if self.mode == "sampled":
             c = self.count(key)
             if c == 0:  # never seen in H halting samples: p <= 3/H at 95% (the rule of three)
@@ -351,8 +394,7 @@ class Table:
         enumerator.tally.sample_errors). Exhaustive tables are exact: 0."""
         if self.mode != "sampled":
             return 0.0
-        if self.halting == 0:
-            return math.nan
+        self.require_halting()
         shape, pos = self._find(key)
         if pos < 0:
             return math.nan  # never seen: see interval() for its one-sided bound
@@ -406,13 +448,28 @@ class Table:
     def lookup(self, keys, missing: str = "nan") -> dict:
         """Vectorised lookups. keys: a list of keys, or an N x L (1D) / N x R x C (2D)
         numpy array of one shape. Returns arrays: count (float64), probability, ctm."""
+        if missing not in MISSING_POLICIES:
+            self._missing(None, missing)  # the one error for an unknown policy
+        self.require_halting()
         if isinstance(keys, np.ndarray) and keys.ndim == self.space.dims + 1:
-            shape = tuple(keys.shape[1:])
-            rows = keys.reshape(len(keys), -1)
-            counts = self._counts_of(shape, rows)
+            if 0 in keys.shape[1:]:
+                raise TableError(f"lookup keys of shape {keys.shape[1:]} are empty; give at least one symbol")
+            batches = {tuple(keys.shape[1:]): (None, self._symbols(keys, "a lookup key array")
+                                               .reshape(len(keys), -1))}
+            n = len(keys)
         else:
             parsed = [self._parse_key(k) for k in keys]
-            counts = np.array([self._counts_of(s, r[None, :])[0] for s, r in parsed]) if parsed else np.zeros(0)
+            n = len(parsed)
+            batches = {}
+            for i, (s, _) in enumerate(parsed):  # one search per shape, not per key
+                batches.setdefault(s, ([], None))[0].append(i)
+            batches = {s: (np.array(idx), np.stack([parsed[i][1] for i in idx])) for s, (idx, _) in batches.items()}
+        counts, moments = np.zeros(n), np.zeros(n)
+        for shape, (idx, rows) in batches.items():
+            where = slice(None) if idx is None else idx
+            counts[where] = self._counts_of(shape, rows)
+            if self.mode == "sampled":
+                moments[where] = self._moments_of(shape, rows)
         with np.errstate(divide="ignore"):
             ctm = math.log2(self.total) - np.log2(counts)
         absent = counts == 0
@@ -422,10 +479,6 @@ class Table:
             ctm[absent] = self._missing(None, missing)
         out = {"count": counts, "probability": counts / self.total, "ctm": ctm}
         if self.mode == "sampled":
-            if isinstance(keys, np.ndarray) and keys.ndim == self.space.dims + 1:
-                moments = self._moments_of(shape, rows)
-            else:
-                moments = np.array([self._moments_of(s, r[None, :])[0] for s, r in parsed]) if parsed else np.zeros(0)
             with np.errstate(divide="ignore", invalid="ignore"):
                 out["standard_error"] = np.where(counts > 0, self._errors(counts, moments), np.nan)
                 rare = int(np.count_nonzero((counts > 0) & (_seen(counts, moments) < self.min_seen)))
@@ -444,49 +497,77 @@ class Table:
         return np.where(pos >= 0, vals[np.maximum(pos, 0)], 0.0)
 
     def _counts_of(self, shape, rows) -> np.ndarray:
+        """Counts (float64) of rows of valid symbols: a dense array indexed by code for small
+        shapes, a sorted search of the group beyond (bounded memory for long keys)."""
         g = self.groups.get(shape)
         if g is None:
             return np.zeros(len(rows))
-        if g.codes is not None and self.space.symbols ** math.prod(shape) <= MAX_DENSE:
-            dense = self._dense_counts(shape)
-            return dense[codes_of(rows, self.space.symbols).astype(np.intp)]
-        pos = self._position(shape, rows)
+        keys = self._dense_keys(shape)
+        if g.codes is not None and keys is not None and keys <= DENSE_LOOKUP:
+            return self._dense_counts(shape)[codes_of(rows, self.space.symbols).astype(np.intp)]
+        pos = self._position(shape, np.ascontiguousarray(rows, dtype=np.uint8))
         vals = np.asarray(g.counts, dtype=np.float64)
         return np.where(pos >= 0, vals[np.maximum(pos, 0)], 0.0)
 
-    def _dense_counts(self, shape) -> np.ndarray:
-        key = ("counts", shape)
-        if key not in self._dense:
-            size = self.space.symbols ** math.prod(shape)
-            dense = np.zeros(size, dtype=np.float64)
-            g = self.groups[shape]
+    def _dense_keys(self, shape) -> int | None:
+        """m^cells, the keys of one shape, when at most MAX_DENSE; None above (the power itself
+        is never computed for long shapes: 2^(10^9) alone takes seconds)."""
+        cells = math.prod(shape)
+        if cells > MAX_DENSE.bit_length() - 1:  # m >= 2, so m^cells > MAX_DENSE
+            return None
+        keys = self.space.symbols ** cells
+        return keys if keys <= MAX_DENSE else None
+
+    def _cached(self, key, make) -> np.ndarray:
+        """self._dense[key], made once while the kept arrays stay under CACHE_BYTES."""
+        if key in self._dense:
+            return self._dense[key]
+        out = make()
+        out.setflags(write=False)
+        if sum(a.nbytes for a in self._dense.values()) + out.nbytes <= CACHE_BYTES:
+            self._dense[key] = out
+        return out
+
+    def _new_dense_counts(self, shape) -> np.ndarray:
+        dense = np.zeros(self._dense_keys(shape), dtype=np.float64)
+        g = self.groups.get(shape)
+        if g is not None:  # the loader stores every shape of at most 2^64 keys as codes
             dense[g.codes.astype(np.intp)] = np.asarray(g.counts, dtype=np.float64)
-            self._dense[key] = dense
-        return self._dense[key]
+        return dense
+
+    def _dense_counts(self, shape) -> np.ndarray:
+        return self._cached(("counts", shape), lambda: self._new_dense_counts(shape))
 
     def dense(self, shape, missing: str = "nan") -> np.ndarray:
         """CTM of every key of one shape (an int length in 1D, (rows, cols) in 2D),
         indexed by base-m code, most significant symbol first (row-major in 2D)."""
-        shape = (shape,) if isinstance(shape, int) else tuple(shape)
-        if len(shape) != self.space.dims:
-            raise TableError(f"shape {shape} does not fit a {self.space.dims}D table")
-        size = self.space.symbols ** math.prod(shape)
-        if size > MAX_DENSE:
-            raise TableError(f"a dense view of shape {shape} would hold {size:,} keys, over {MAX_DENSE:,}; "
-                             "use lookup() instead")
+        try:
+            shape = (operator.index(shape),) if not isinstance(shape, (tuple, list)) else tuple(
+                operator.index(s) for s in shape)
+        except TypeError:
+            raise TableError(f"shape {shape!r} is not a length or a (rows, cols) pair of whole numbers") from None
+        if len(shape) != self.space.dims or min(shape) < 1:
+            raise TableError(f"shape {shape} does not fit a {self.space.dims}D table; give "
+                             + ("a length >= 1" if self.space.dims == 1 else "(rows, cols), each >= 1"))
+        if self._dense_keys(shape) is None:
+            raise TableError(f"a dense view of shape {shape} would hold {self.space.symbols}^{math.prod(shape)} "
+                             f"keys, over {MAX_DENSE:,}; use lookup() instead")
         if missing not in ("nan", "fallback"):
             raise TableError("a dense view needs missing='nan' or 'fallback'")
-        key = (missing, shape)
-        if key not in self._dense:
-            counts = self._dense_counts(shape) if shape in self.groups else np.zeros(size)
-            with np.errstate(divide="ignore"):
-                out = math.log2(self.total) - np.log2(counts)
-            out[counts == 0] = self._missing(None, missing)
-            out.setflags(write=False)
-            self._dense[key] = out
-        return self._dense[key]
+        self.require_halting()
 
-    # ---- iteration, statistics, export
+        def make():  # in place on a fresh count array: one array of m^cells floats at a time
+            kept = self._dense.get(("counts", shape))
+            out = kept.copy() if kept is not None else self._new_dense_counts(shape)
+            absent = out == 0
+            with np.errstate(divide="ignore"):
+                np.log2(out, out=out)
+            np.subtract(math.log2(self.total), out, out=out)
+            out[absent] = self._missing(None, missing)
+            return out
+
+        return self._cached((missing, shape), make)
+
     def items(self, shape=None):
         """(key text, exact count) in shape order, then code order; optionally one shape."""
         shapes = self.shapes if shape is None else [(shape,) if isinstance(shape, int) else tuple(shape)]
@@ -562,6 +643,8 @@ class Table:
                 out.write(f"{k},{c}\n")
             return
         out.write("key,count,probability,standard_error,ctm,ctm_low,ctm_high\n")
+        if not self.total:
+            return  # no halting sample: no rows
         log_total = math.log2(self.total)
         for shape in self.shapes:
             g = self.groups[shape]
@@ -594,8 +677,10 @@ def _seen(s1, s2):
     return s1 * s1 / s2
 
 
+BUILDER_ENV = "CTMTAB_BUILDER"
+
+
 def _whoami() -> str:
-    try:
-        return f"{getpass.getuser()}@{socket.gethostname()}"
-    except Exception:  # no user database in some containers
-        return "unknown"
+    """The default build.by: what the user configured in $CTMTAB_BUILDER, else nothing. Tables
+    are shared, so the user and host name are never recorded unasked."""
+    return " ".join(os.environ.get(BUILDER_ENV, "").split())

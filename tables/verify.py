@@ -35,9 +35,38 @@ def problems(table: Table) -> list[str]:
     for shape in t.shapes:
         by_size[max(shape)] = by_size.get(max(shape), 0) + exact_sum(t.groups[shape].counts)
         out += [f"shape {shape}: {p}" for p in _closure(t, shape)]
+        if t.mode == "sampled":
+            out += [f"shape {shape}: {p}" for p in _moments(t, shape)]
     for size, total in sorted(by_size.items()):
         if size >= len(t.hist_len) or total != per_run * t.hist_len[size]:
             out.append(f"size {size}: the counts disagree with the output-size histogram")
+    return out
+
+
+def _moments(table: Table, shape: tuple) -> list[str]:
+    """Moments no sample could give. A sample adds X in 1..k images of the key (k images per
+    sample), X^2 to S2: so S1 <= S2 <= k S1, and over the H halting samples S1^2 <= H S2
+    (Cauchy-Schwarz; below it the variance is negative and the standard error a false 0)."""
+    g = table.groups[shape]
+    k, h = table.header["sample"]["images_per_sample"], table.halting
+    s1, s2 = g.counts, g.moments
+    f1, f2 = np.asarray(s1, dtype=np.float64), np.asarray(s2, dtype=np.float64)
+    rules = [("S1 > S2 (a sum of squared image counts below their sum)", f1, f2, lambda a, b: a > b),
+             (f"S2 > {k} x S1 (over {k} images in one sample)", f2, k * f1, lambda a, b: b > k * a),
+             (f"S1^2 > H x S2 (a standard error below what {h} halting samples allow)",
+              f1 * f1, h * f2, lambda a, b: a * a > h * b)]
+    out = []
+    for name, left, right, exact in rules:
+        if exact is rules[0][3] and s1.dtype != object and s2.dtype != object:
+            bad = np.flatnonzero(s1 > s2)  # exact in uint64
+        else:  # floats decide all but a narrow band around equality, exact integers the band
+            sure = left > right * (1 + 1e-9)
+            band = np.flatnonzero(~sure & (left >= right * (1 - 1e-9)))
+            bad = np.union1d(np.flatnonzero(sure),
+                             [i for i in band if exact(int(s1[i]), int(s2[i]))]).astype(np.int64)
+        if len(bad):
+            out.append(f"{len(bad)} keys have impossible moments, {name}, e.g. "
+                       f"{table.key_text(shape, g.rows(table.space.symbols)[bad[0]])}")
     return out
 
 

@@ -71,6 +71,43 @@ def with_version(data: bytes, major: int, minor: int) -> bytes:
 
 
 def small_valid() -> bytes:
-    from conftest import exact_table
+    """The shipped (2,2) table, rewritten: needs no compiled core (test_without_core.py)."""
+    from ctmtab.tables import load
 
-    return Table.from_tally(exact_table(2, 2, 6), command="test", builder="tests").to_bytes()
+    return Table.from_tally(load("1d-n2-m2-t6").to_tally(), command="test", builder="tests").to_bytes()
+
+
+def no_halting(mode: str = "exhaustive", space=Space(1, 2, 2), cap=6) -> bytes:
+    """A well-formed table in which no run halted (sampled: none of its 1000 samples)."""
+    extra = dict(mode="sampled", samples=1000, seed=1, moments={}, streams=[(1, 1000)], weight=1000) \
+        if mode == "sampled" else {}
+    size = 1000 if mode == "sampled" else space.size
+    tally = Tally(space=space, cap=cap, groups={}, halting=0, non_halting=0, undecided=size, halting_nodes=0,
+                  steps_hist=[], length_hist=[], longest_run=0, most_nonblank=0, steps=0, deciders=(), **extra)
+    tally.check()
+    return Table.from_tally(tally, command="test", builder="tests").to_bytes()
+
+
+def with_zero_body(data: bytes, zeros: int, declared: int | None = None) -> bytes:
+    """A decompression bomb: the body replaced by `zeros` zero bytes (a few KiB compressed),
+    declared as `declared` raw bytes (default: honestly), every checksum re-sealed."""
+    comp = zstandard.ZstdCompressor(level=3)
+    chunks = comp.compressobj(size=zeros)
+    block, left, parts = bytes(min(zeros, 1 << 24)), zeros, []
+    while left:
+        parts.append(chunks.compress(block[: min(left, len(block))]))
+        left -= min(left, len(block))
+    parts.append(chunks.flush())
+    new = b"".join(parts)
+    pre, head, _ = split(data)
+    header = msgpack.unpackb(head, raw=False)
+    header["body"]["raw_size"] = zeros if declared is None else declared
+    header["body"]["sha256"] = hashlib.sha256(new).hexdigest()
+    return seal(pre, msgpack.packb(header, use_bin_type=True), new)
+
+
+def small_2d() -> bytes:
+    """The shipped 2D (2,2) table, rewritten (no compiled core needed)."""
+    from ctmtab.tables import load
+
+    return Table.from_tally(load("2d-n2-m2-t2000").to_tally(), command="test", builder="tests").to_bytes()

@@ -1,23 +1,70 @@
 """The fast tree search against an independent brute force over every machine
-of the full space, string by string (tests/bruteforce.py shares no code with ctmtab)."""
+of the full space, string by string (tests/bruteforce.py shares no code with ctmtab).
+
+The brute force runs once per space, at the largest cap listed for it, and tallies
+each output by its halting step; every smaller cap is read off that one pass."""
 import pytest
 
-from bruteforce import brute_force_1d, code_of
+from bruteforce import brute_force_1d, brute_force_2d, code_of, up_to
 from conftest import exact_table
 
+from ctmtab.enumerator import Space, build
 
-@pytest.mark.parametrize("n,m,cap", [
-    (1, 2, 3), (2, 2, 6), (1, 3, 5), (2, 2, 3),
-    (3, 2, 21),   # cap S(3) = 21 (Lin & Rado 1965, verified)
-    (3, 2, 9),    # a cap that leaves many runs undecided
-    (2, 3, 38),   # cap S(2,3) = 38 (Lafitte & Papazian 2007, verified)
-])
-def test_fast_table_equals_brute_force(n, m, cap):
-    counts, halting, steps_hist = brute_force_1d(n, m, cap)
-    t = exact_table(n, m, cap)
-    fast = {(len(k), code_of(k, m)): c for g in t.groups.values() for k, c in g.items()}
-    assert fast == dict(counts)
+# (dims, states, symbols): caps checked, the largest one brute-forced
+CAPS = {
+    (1, 1, 2): (1, 2, 3),
+    (1, 2, 2): (1, 3, 6),       # 6 = S(2) (Rado 1962, verified, REFERENCES.md)
+    (1, 1, 3): (2, 5),
+    (1, 3, 2): (7, 9, 20, 21),  # 21 = S(3) (Lin & Rado 1965, verified); 9 leaves many runs undecided
+    (1, 2, 3): (12, 37, 38),    # 38 = S(2,3) (Lafitte & Papazian 2007, verified)
+    (2, 1, 2): (1, 4, 10),
+    (2, 2, 2): (4, 7, 10),
+    (2, 1, 3): (5, 10),
+}
+HEAVY = {(1, 2, 3)}  # 11,390,625 machines x 3 blanks x 38 steps: the CI lane (.ci/run)
+
+
+def cases():
+    for space, caps in CAPS.items():
+        marks = [pytest.mark.ci_slow] if space in HEAVY else []
+        for cap in caps:
+            yield pytest.param(*space, cap, marks=marks, id=f"{space[0]}d-n{space[1]}-m{space[2]}-t{cap}")
+
+
+@pytest.fixture(scope="session")
+def brute():
+    """(dims, n, m) -> (counts by halting step, halts per blank and step), one pass per space."""
+    done = {}
+
+    def get(dims, n, m):
+        if (dims, n, m) not in done:
+            run = brute_force_1d if dims == 1 else brute_force_2d
+            done[dims, n, m] = run(n, m, max(CAPS[dims, n, m]))
+        return done[dims, n, m]
+    return get
+
+
+def fast_table(dims, n, m, cap):
+    return exact_table(n, m, cap) if dims == 1 else build(Space(2, n, m), cap, budget_hours=None)
+
+
+@pytest.mark.parametrize("dims,n,m,cap", cases())
+def test_fast_table_equals_brute_force(brute, dims, n, m, cap):
+    counts, halts = brute(dims, n, m)
+    t = fast_table(dims, n, m, cap)
+    fast = {(*shape, code_of(k, m)) if dims == 2 else (len(k), code_of(k, m)): c
+            for shape, g in t.groups.items() for k, c in g.items()}
+    assert fast == up_to(counts, cap)
     # the totals count machines on any one blank: the brute force ran every blank
-    assert halting == [t.halting] * m
-    assert steps_hist[0][: len(t.steps_hist)] == t.steps_hist
-    assert sum(steps_hist[0][len(t.steps_hist):]) == 0
+    assert [sum(h[: cap + 1]) for h in halts] == [t.halting] * m
+    if dims == 1:
+        assert t.steps_hist + [0] * (cap + 1 - len(t.steps_hist)) == halts[0][: cap + 1]
+
+
+@pytest.mark.parametrize("dims,n,m,cap", [c for c in cases() if c.values[3] < max(CAPS[c.values[:3]])])
+def test_undecided_weight_bounds_the_later_halts(brute, dims, n, m, cap):
+    # the certified interval is sound only if every machine that halts after the cap
+    # was counted undecided at the cap: the brute force sees those halts directly
+    _, halts = brute(dims, n, m)
+    later = sum(halts[0][cap + 1:])
+    assert later <= fast_table(dims, n, m, cap).undecided

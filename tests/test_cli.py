@@ -61,7 +61,8 @@ def test_verify_passes_and_fails(built, tmp_path):
 
 
 def test_run_the_five_state_champion():
-    # Marxen & Buntrock 1990: 47,176,870 steps, 4,098 ones (REFERENCES.md; verified by this run)
+    # the champion of Marxen & Buntrock 1990 (its notation: memory): S(5) = 47,176,870 steps and
+    # 4,098 ones (bbchallenge, arXiv:2509.12337, verified); a misremembered notation fails here
     r = ctm("run", "1RB1LC_1RC1RB_1RD0LE_1LA1LD_1RZ0LA", "--json")
     out = json.loads(r.stdout)
     assert out["status"] == "halted" and out["steps"] == 47_176_870 and out["nonblank"] == 4_098

@@ -14,6 +14,7 @@ from conftest import exact_table
 from hostile import (hand_tally, sections, small_valid, with_header, with_raw_body, with_version)
 
 
+@pytest.mark.core  # builds with exact_table
 def test_round_trip_keeps_every_count():
     tally = exact_table(3, 2, 21)
     t = loads(Table.from_tally(tally).to_bytes())
@@ -24,6 +25,7 @@ def test_round_trip_keeps_every_count():
     assert problems(t) == []
 
 
+@pytest.mark.core  # builds with exact_table
 def test_same_build_gives_byte_identical_body():
     a = Table.from_tally(exact_table(3, 2, 21), notes="first").to_bytes()
     b = Table.from_tally(exact_table(3, 2, 21, 2), notes="second, split build").to_bytes()
@@ -42,6 +44,7 @@ def test_counts_beyond_64_bits_and_keys_beyond_64_bit_codes_stay_exact():
     assert t.total == 2 * big + 4
 
 
+@pytest.mark.core  # builds with exact_table
 def test_write_is_atomic(tmp_path, monkeypatch):
     path = tmp_path / "t.ctmt"
     Table.from_tally(exact_table(2, 2, 6)).save(path)
@@ -98,6 +101,7 @@ def test_unknown_major_version_is_refused():
         loads(with_version(small_valid(), fmt.MAJOR + 1, 0))
 
 
+@pytest.mark.core  # builds with exact_table
 def test_newer_minor_version_loads_with_a_warning():
     data = with_header(with_version(small_valid(), fmt.MAJOR, fmt.MINOR + 3),
                        lambda h: h.update(future_field={"x": 1}))
@@ -164,6 +168,7 @@ def test_pickle_is_never_used():
         assert "pickle" not in text and "allow_pickle=True" not in text, source
 
 
+@pytest.mark.core  # builds with exact_table
 def test_shipped_tables_load_by_name_and_verify():
     from ctmtab.tables import shipped
     names = shipped()
@@ -176,3 +181,50 @@ def test_shipped_tables_load_by_name_and_verify():
     assert t.distinct == exact_table(4, 2, 107).distinct()
     assert dict(t.items()) == {"".join(map(str, k)): c for g in exact_table(4, 2, 107).groups.values()
                                for k, c in g.items()}
+
+
+def _closed(t, images) -> bool:
+    """Every key's count equals that of each of its images (images: rows -> rows, one shape)."""
+    for shape in t.shapes:
+        g = t.groups[shape]
+        rows = g.rows(t.space.symbols).reshape(len(g), *shape)
+        for img in images(rows):
+            for row, c in zip(img, g.counts):
+                if t.count(np.ascontiguousarray(row)) != c:
+                    return False
+    return True
+
+
+@pytest.mark.core  # builds and samples
+def test_header_symmetries_match_the_space_and_the_counts():
+    import itertools
+
+    from ctmtab.enumerator import build, sample
+
+    mirror = lambda r: [r[:, ::-1]]  # noqa: E731
+    dihedral = lambda r: [np.rot90(r, k, axes=(1, 2)) for k in (1, 2, 3)] + [r[:, ::-1, :]]  # noqa: E731
+
+    def perms(m, every):
+        maps = itertools.permutations(range(m)) if every else (
+            [b if s == 0 else 0 if s == b else s for s in range(m)] for b in range(m))
+        return lambda r: [np.array(p, dtype=np.uint8)[r] for p in maps]
+
+    # (table, expected list, the image maps each named symmetry promises); DEVELOPERS.md
+    # "How the search works" and "Sampling": exhaustive searches count mirror/dihedral classes,
+    # blank swaps and unused states once; sampled builds add each output's images instead
+    cases = [
+        (build(Space(1, 2, 3), 12, budget_hours=None, workers=1), ["mirror", "blank-swap", "state-relabelling"],
+         [mirror, perms(3, False)]),
+        (build(Space(2, 2, 2), 20, budget_hours=None, workers=1), ["dihedral", "blank-swap", "state-relabelling"],
+         [dihedral, perms(2, False)]),
+        (sample(Space(1, 2, 3), 12, 25_000, seed=3, workers=1), ["mirror", "symbol-permutation"],
+         [mirror, perms(3, True)]),
+        (sample(Space(2, 2, 2), 20, 25_000, seed=3, workers=1), ["dihedral", "symbol-permutation"],
+         [dihedral, perms(2, True)]),
+        (sample(Space(1, 1, 6), 5, 25_000, seed=3, workers=1), ["mirror", "blank-swap"], [mirror]),
+    ]
+    for tally, expected, maps in cases:
+        t = loads(Table.from_tally(tally).to_bytes())
+        assert t.header["symmetries"] == expected, (t.space, t.mode)
+        for images in maps:
+            assert _closed(t, images), (t.space, t.mode, expected)

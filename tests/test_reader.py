@@ -73,5 +73,5 @@ def test_iteration_filtering_and_summary(t4):
     eights = list(t4.items(8))
     assert len(eights) == 256 and all(len(k) == 8 for k, _ in eights)
     s = t4.summary()
-    assert s["distinct_keys"] == len(t4) == 1832
+    assert s["distinct_keys"] == len(t4) == 1832  # the (4,2) table's distinct strings (memory, REFERENCES.md)
     assert s["complete_shapes"][-1] == "8"

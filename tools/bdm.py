@@ -6,24 +6,34 @@ the table, so a decomposition is a few vectorised passes."""
 from __future__ import annotations
 
 import math
+import warnings
 
 import numpy as np
 
 from ..errors import CtmtabError
 
-MODES = ("trim", "periodic", "recursive")
+# What happens to the cells that do not fill a whole block.
+MODES = ("drop", "wrap", "shrink")
+# The names of 0.1.0, accepted for one more release with a DeprecationWarning.
+OLD_MODES = {"trim": "drop", "periodic": "wrap", "recursive": "shrink"}
 
 
 class BDM:
     """BDM with blocks of one size: an int in 1D, (rows, cols) in 2D.
 
-    mode: 'trim' drops the remainder; 'periodic' wraps around (a ring, or a torus in 2D);
-    'recursive' scores the remainder with smaller blocks of the same table. stride: the step
+    mode, for the cells that do not fill a block: 'drop' leaves them out; 'wrap' lets the last
+    blocks wrap around to the start (a ring, or a torus in 2D); 'shrink' scores them with smaller
+    blocks of the same table. The old names trim, periodic and recursive still work for one
+    release and warn (DeprecationWarning). stride: the step
     between blocks (default the block size, no overlap; 1 gives every overlapping block).
     missing: 'fallback' (default) scores a block the table never produced above every observed
     value, 'nan' makes the whole estimate NaN."""
 
-    def __init__(self, table, block, mode: str = "trim", stride=None, missing: str = "fallback"):
+    def __init__(self, table, block, mode: str = "drop", stride=None, missing: str = "fallback"):
+        if mode in OLD_MODES:
+            warnings.warn(f"BDM mode {mode!r} is now called {OLD_MODES[mode]!r}; the old name goes in the "
+                          "next release", DeprecationWarning, stacklevel=2)
+            mode = OLD_MODES[mode]
         if mode not in MODES:
             raise CtmtabError(f"unknown BDM mode {mode!r}; use one of {', '.join(MODES)}")
         self.table = table
@@ -51,11 +61,11 @@ class BDM:
         return x if x.dtype == np.uint8 else x.astype(np.uint8)
 
     def codes(self, x) -> np.ndarray:
-        """Base-m codes of every block the decomposition takes (the remainder of 'recursive' aside)."""
+        """Base-m codes of every block the decomposition takes (the remainder of 'shrink' aside)."""
         x = self._data(x)
         if self.dims == 1:
             (length,), (step,) = self.block, self.stride
-            if self.mode == "periodic":
+            if self.mode == "wrap":
                 n = len(x)
                 x = np.concatenate([x, np.resize(x, length)])[: n - 1 + length]  # wrap around
             if len(x) < length:
@@ -68,7 +78,7 @@ class BDM:
             return code
         (br, bc), (sr, sc) = self.block, self.stride
         rows, cols = x.shape
-        if self.mode == "periodic":
+        if self.mode == "wrap":
             r0, c0 = np.arange(0, rows, sr), np.arange(0, cols, sc)
             x = np.pad(x, ((0, br), (0, bc)), mode="wrap")
         else:
@@ -83,7 +93,7 @@ class BDM:
         """BDM of one sequence or array, in bits."""
         codes = self.codes(x)
         total = _score(self.ctm, codes, self.m ** math.prod(self.block))
-        if self.mode == "recursive":
+        if self.mode == "shrink":
             total += self._remainder(self._data(x))
         return total
 
@@ -95,8 +105,8 @@ class BDM:
             rest = x[last:]
             if len(rest) == 0:
                 return 0.0
-            return BDM(self.table, len(rest), "recursive", missing=self.missing)(rest) if len(rest) < length \
-                else BDM(self.table, length, "recursive", self.stride, self.missing)(rest)
+            return BDM(self.table, len(rest), "shrink", missing=self.missing)(rest) if len(rest) < length \
+                else BDM(self.table, length, "shrink", self.stride, self.missing)(rest)
         (br, bc), (sr, sc) = self.block, self.stride
         rows, cols = x.shape
         end_r = ((rows - br) // sr) * sr + br if rows >= br else 0
@@ -105,7 +115,7 @@ class BDM:
         for part in (x[:end_r, end_c:], x[end_r:, :end_c], x[end_r:, end_c:]):
             if part.size:
                 shape = (min(br, part.shape[0]), min(bc, part.shape[1]))
-                total += BDM(self.table, shape, "recursive", missing=self.missing)(part)
+                total += BDM(self.table, shape, "shrink", missing=self.missing)(part)
         return total
 
 

@@ -3,7 +3,10 @@
 from __future__ import annotations
 
 import argparse
+import errno
 import json
+import math
+import os
 import shlex
 import signal
 import sys
@@ -28,6 +31,32 @@ class _Parser(argparse.ArgumentParser):
 
 
 SPACE_DEFAULTS = {"dims": 1, "states": 3, "symbols": 2}
+
+
+def _hours(text: str) -> float:
+    """--budget-hours: a positive finite number (nan or inf would switch the guard off)."""
+    try:
+        value = float(text)
+    except ValueError:
+        value = math.nan
+    if not (0 < value < math.inf):
+        raise argparse.ArgumentTypeError(f"{text!r} is not a positive number of hours, e.g. 24")
+    return value
+
+
+def _check_text(argv) -> None:
+    """Arguments and the builder name go into table headers as UTF-8 text: refuse bytes that are
+    not UTF-8 before any work, not when the finished table is written."""
+    from ..tables.table import BUILDER_ENV
+
+    named = [(f"argument {os.fsencode(x)!r}", x) for x in argv]
+    named.append((f"${BUILDER_ENV}", os.environ.get(BUILDER_ENV, "")))
+    for what, text in named:
+        try:
+            text.encode("utf-8")
+        except UnicodeEncodeError:
+            raise CtmtabError(f"{what} is not valid UTF-8 text; table headers keep the command line "
+                              "as text, so give a UTF-8 name or value") from None
 
 
 def _space_args(p):
@@ -63,10 +92,11 @@ def _parser() -> argparse.ArgumentParser:
                    help="add new samples (under a new seed) to this sampled table; writes it in place unless -o")
     p.add_argument("--split-depth", type=int, default=None,
                    help="branch points above the work-unit cut; default from the space")
-    p.add_argument("--budget-hours", type=float, default=24.0,
+    p.add_argument("--budget-hours", type=_hours, default=24.0,
                    help="refuse builds estimated above this many CPU-hours; default 24")
     p.add_argument("--notes", default="", help="free text stored in the header")
-    p.add_argument("--builder", default=None, help="who built it, stored in the header; default user@host")
+    p.add_argument("--builder", default=None,
+                   help="who built it, stored in the header; default $CTMTAB_BUILDER, else nothing")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress or summary on stderr")
 
     p = sub.add_parser("info", help="summarise a table file")
@@ -115,7 +145,8 @@ def _parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("run", help="run one machine given in the compact notation (1RB1LB_1LA1RZ)")
     p.add_argument("machine")
-    p.add_argument("--max-steps", type=int, default=10**9, help="default 10^9")
+    p.add_argument("--max-steps", type=int, default=10**8,
+                   help="default 10^8; a run that would fill more than 2^28 tape cells is refused")
     p.add_argument("--blank", type=int, default=0)
     p.add_argument("--json", action="store_true")
     return top
@@ -126,8 +157,38 @@ def _command() -> str:
     return "ctmtab " + " ".join(shlex.quote(x) for x in sys.argv[1:])
 
 
+def _finite(obj):
+    """obj with every NaN or infinity as None: --json output is strict JSON (RFC 8259), where
+    null stands for a value that is not a number (an unseen key's CTM, an unbounded interval)."""
+    if isinstance(obj, float) or (hasattr(obj, "dtype") and getattr(obj, "ndim", 1) == 0):
+        try:
+            value = float(obj)
+        except (TypeError, ValueError):
+            return obj
+        if not math.isfinite(value):
+            return None
+        return obj if isinstance(obj, float) else obj.item()
+    if isinstance(obj, dict):
+        return {k: _finite(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_finite(v) for v in obj]
+    return obj
+
+
+def _json(obj, **kw) -> str:
+    return json.dumps(_finite(obj), default=str, allow_nan=False, **kw)
+
+
+def _printable(text: str) -> str:
+    """Text from a file, safe for a terminal: control and format characters (escape sequences,
+    bidi overrides) shown as \\x.. / \\u.. escapes, never sent raw."""
+    return "".join(c if c.isprintable() or c == "\n" else
+                   (f"\\x{ord(c):02x}" if ord(c) < 0x100 else f"\\u{ord(c):04x}" if ord(c) < 0x10000
+                    else f"\\U{ord(c):08x}") for c in text)
+
+
 def _emit(obj, as_json: bool, text: str) -> None:
-    print(json.dumps(obj, indent=2, default=str) if as_json else text)
+    print(_json(obj, indent=2) if as_json else _printable(text))
 
 
 def _shard(text):
@@ -233,21 +294,29 @@ def cmd_build(a) -> int:
     output = a.output or (a.extend if base else stem + (f"-shard{shard[0]}of{shard[1]}" if shard else "") + ".ctmt")
     if not Path(output).resolve().parent.is_dir():
         raise CtmtabError(f"cannot write {output}: its folder does not exist")
+    if Path(output).is_dir():  # refused now, not after the build
+        raise CtmtabError(f"cannot write {output}: it is a folder; give a file name")
     workers = a.workers if a.workers is not None else cores()
-    spool = output + ".parts"
+    # The spool sits beside the table; a device or pipe gets it in this folder, under the default name.
+    special = Path(output).exists() and not Path(output).is_file()
+    spool = (stem + ".ctmt.parts") if special else output + ".parts"
     t0 = time.perf_counter()
     bar = Bar(f"{space.label} cap {cap}", enabled=False if a.quiet else None)
     try:
         if sampled:
             from ..enumerator import sample
             tally = sample(space, cap, a.sample, seed=seed, deciders=deciders, workers=workers,
-                           scheduler=a.scheduler, until=_until(a.until), prior=prior, on_progress=bar)
+                           scheduler=a.scheduler, until=_until(a.until), prior=prior, spool=spool,
+                           on_progress=bar)
         else:
             tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, workers=workers,
                           scheduler=a.scheduler, shard=shard, spool=spool, budget_hours=a.budget_hours,
                           on_progress=bar)
     finally:
         bar.close()
+    if getattr(tally, "spool_damaged", 0):
+        print(f"ctmtab build: warning: {tally.spool_damaged} spool part(s) in {spool} failed their seal "
+              "check (damaged, moved or from another build); their units were recomputed", file=sys.stderr)
     if base is not None:
         from ..enumerator.tally import combine_samples
         notes = "; ".join(x for x in (base.header.get("notes", ""), a.notes) if x)
@@ -262,7 +331,12 @@ def cmd_build(a) -> int:
         table = Table.from_tally(tally, command=_command(), notes=a.notes, builder=a.builder)
     table.header["build"]["resumed_units"] = tally.resumed
     table.header["build"]["workers"] = "dask" if a.scheduler else workers
-    table.save(output)
+    try:
+        table.save(output)
+    except OSError as exc:  # the spool stays: the same command resumes once the cause is fixed
+        if Path(spool).is_dir():
+            exc.hint = f"the finished units are kept in {spool}; fix this and run the same command again"
+        raise
     from ..enumerator.spool import Spool
     Spool.discard(spool)
     if not a.quiet:
@@ -300,7 +374,8 @@ def cmd_info(a) -> int:
         f"({s['undecided_fraction']:.3%})",
         f"  keys       {s['distinct_keys']:,} distinct; complete up to size "
         f"{max([int(x.split('x')[0]) for x in s['complete_shapes']] or [0]) if t.space.dims == 1 else s['complete_shapes']}",
-        f"  CTM        {s['ctm_min']:.4f} to {s['ctm_max']:.4f} bits",
+        f"  CTM        {s['ctm_min']:.4f} to {s['ctm_max']:.4f} bits" if t.total
+        else "  CTM        none: no run halted",
         f"  longest    {s['stats'].get('longest_run', '?')} steps, {s['stats'].get('most_nonblank', '?')} non-blank cells",
         f"  built      {s['build'].get('created', '?')} by {s['build'].get('by', '?')} in {s['build'].get('seconds', '?')} s",
         f"  command    {s['build'].get('command', '')}",
@@ -322,7 +397,7 @@ def cmd_info(a) -> int:
             tail = rows[shown:]
             lines.append(f"  sizes {tail[0]['size']}-{tail[-1]['size']}: {sum(r['keys'] for r in tail):,} keys, "
                          f"{sum(r['rare_keys'] for r in tail):,} of them rare")
-    print("\n".join(lines))
+    print(_printable("\n".join(lines)))  # notes, command and builder come from the file
     return 0
 
 
@@ -364,21 +439,27 @@ def cmd_lookup(a) -> int:
 
 
 def cmd_verify(a) -> int:
+    """Every file, each reported: a table that fails is 1, a file that cannot be read 2; the
+    exit code is the worst."""
     from ..tables import load, problems
 
-    report, bad = [], 0
+    report, worst = [], 0
     for name in a.tables:
+        code = 0
         try:
             found = problems(load(name))
+            code = 1 if found else 0
         except CtmtabError as exc:
-            found = [str(exc)]
-        bad += bool(found)
+            found, code = [str(exc)], 1
+        except OSError as exc:
+            found, code = [f"{exc.strerror}: {exc.filename}" if exc.strerror and exc.filename else str(exc)], 2
+        worst = max(worst, code)
         report.append({"table": name, "ok": not found, "problems": found})
         if not a.json:
-            print(f"{name}: ok" if not found else f"{name}: FAILED\n" + "\n".join(f"  {p}" for p in found))
+            print(_printable(f"{name}: ok" if not found else f"{name}: FAILED\n" + "\n".join(f"  {p}" for p in found)))
     if a.json:
         _emit(report, True, "")
-    return 1 if bad else 0
+    return worst
 
 
 def cmd_merge(a) -> int:
@@ -393,15 +474,17 @@ def cmd_export(a) -> int:
 
     import io
 
-    from ..fsutil import write_atomic
+    from ..fsutil import same_file, write_atomic
 
+    if a.output and same_file(a.output, a.table):
+        raise CtmtabError(f"-o {a.output} is the table being exported; writing it would destroy the table. "
+                          "Give another file name")
     t = load(a.table)
     out = io.StringIO() if a.output else sys.stdout
     if a.format == "csv":
         t.write_csv(out)
     else:
-        json.dump(t.to_json(), out, default=str)
-        out.write("\n")
+        out.write(_json(t.to_json()) + "\n")  # strict JSON: null for a non-finite value
     if a.output:  # all or nothing under the final name
         write_atomic(a.output, out.getvalue().encode())
     return 0
@@ -414,39 +497,27 @@ def cmd_run(a) -> int:
     obj = {"status": r.status, "steps": r.steps, "nonblank": r.nonblank, "cells": len(r.output),
            "head": r.head, "state": chr(65 + r.state),
            "output": r.output_text if len(r.output) <= 10_000 else None}
-    text = (f"{r.status} after {r.steps:,} steps; {r.nonblank:,} non-blank of {len(r.output):,} visited cells"
+    what = (f"escapes after {r.steps:,} steps (from there on it moves into blank cells forever: it never halts)"
+            if r.status == "escapes" else f"{r.status} after {r.steps:,} steps")
+    text = (f"{what}; {r.nonblank:,} non-blank of {len(r.output):,} visited cells"
             + (f"\n{r.output_text}" if len(r.output) <= 200 else ""))
     _emit(obj, a.json, text)
     return 0
 
 
-def _sizes(text):
-    if not text:
-        return None
-    out = []
-    for part in text.split(","):
-        part = part.strip()
-        try:
-            if "x" in part:
-                out.append(tuple(int(v) for v in part.split("x")))
-            elif "-" in part:
-                lo, hi = (int(v) for v in part.split("-"))
-                out += list(range(lo, hi + 1))
-            else:
-                out.append(int(part))
-        except ValueError:
-            raise CtmtabError(f"--sizes {text!r}: {part!r} is not a length, a range like 5-11 or a shape like 3x3") from None
-    return out
-
-
 def cmd_validate(a) -> int:
     from ..tables import load
-    from .validate import resolve, validate, values_from_csv
+    from .validate import resolve, shapes_from_text, validate, values_from_csv
 
-    t = load(a.table)
-    est = resolve(a.estimator) if a.estimator else None
+    if a.worst < 0:
+        raise CtmtabError(f"--worst {a.worst} is negative; give 0 or more")
+    est = resolve(a.estimator) if a.estimator else None  # before the load: bad input fails fast
     vals = values_from_csv(a.values) if a.values else None
-    rep = validate(t, est, vals, sizes=_sizes(a.sizes), worst=a.worst)
+    t = load(a.table)
+    rep = validate(t, est, vals, sizes=shapes_from_text(t, a.sizes), worst=a.worst)
+    if rep.rare:  # one line for all of them: a sampled table can hold millions of rare keys
+        print(f"ctmtab validate: warning: {rep.rare:,} of the {rep.keys:,} keys were seen in fewer than "
+              f"{t.min_seen} samples; their CTM values are rough", file=sys.stderr)
     if a.plot:
         from .plots import plot_report
         plot_report(rep, a.plot, title=a.estimator or Path(a.values).name)
@@ -465,10 +536,18 @@ def cmd_validate(a) -> int:
     return 0
 
 
+def _output_dir(folder: str) -> None:
+    p = Path(folder)
+    if (p.exists() or p.is_symlink()) and not p.is_dir():
+        raise CtmtabError(f"-o {folder} is a file, not a folder; give a folder for the figures "
+                          "(figures of the same name in it are replaced)")
+
+
 def cmd_plot(a) -> int:
     from ..tables import load
     from .plots import plot_table
 
+    _output_dir(a.output_dir)
     for path in plot_table(load(a.table), a.output_dir):
         print(path)
     return 0
@@ -477,6 +556,7 @@ def cmd_plot(a) -> int:
 def cmd_demo(a) -> int:
     from .demo import run
 
+    _output_dir(a.output_dir)
     run(a.output_dir)
     return 0
 
@@ -485,17 +565,53 @@ COMMANDS = {"validate": cmd_validate, "plot": cmd_plot, "demo": cmd_demo, "build
             "merge": cmd_merge, "export": cmd_export, "run": cmd_run}
 
 
+_OS_HINTS = {
+    errno.ENOSPC: "the disk or device is full; free some space, or write somewhere else",
+    errno.EDQUOT: "the disk quota is used up; free some space, or write somewhere else",
+    errno.EROFS: "the file system is read-only; write somewhere else",
+    errno.EACCES: "check the permissions, or write somewhere else",
+    errno.EPERM: "check the permissions, or write somewhere else",
+}
+
+
+def _os_error_line(exc: OSError) -> str:
+    """One line for any OSError: what failed on which file, and what to do."""
+    where = exc.filename or "standard output"
+    reason = exc.strerror or str(exc)
+    hint = getattr(exc, "hint", None) or _OS_HINTS.get(exc.errno)
+    return f"{where}: {reason}" + (f"; {hint}" if hint else "")
+
+
+def _quiet_stdout() -> None:
+    """After a failed write to stdout, point it at the null device so the exit flush cannot fail
+    again and print a traceback (the recipe of the Python signal docs)."""
+    if sys.stdout is not sys.__stdout__:  # redirected in-process (tests): not ours to touch
+        return
+    try:
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+    except (OSError, ValueError, AttributeError):
+        pass
+
+
 def main(argv=None) -> int:
     if hasattr(signal, "SIGPIPE"):
         signal.signal(signal.SIGPIPE, signal.SIG_DFL)  # `ctmtab export ... | head` ends quietly
     args = _parser().parse_args(argv)
     try:
-        return COMMANDS[args.command](args)
+        if args.command in ("build", "merge"):  # the commands that store their command line
+            _check_text(sys.argv[1:] if argv is None else argv)
+        code = COMMANDS[args.command](args)
+        sys.stdout.flush()  # a full stdout fails here, inside the handlers below
+        return code
     except CtmtabError as exc:
         print(f"ctmtab {args.command}: {exc}", file=sys.stderr)
         return exc.exit_code
-    except (FileNotFoundError, IsADirectoryError, PermissionError) as exc:
-        print(f"ctmtab {args.command}: {exc.strerror or exc}: {exc.filename or ''}".rstrip(": "), file=sys.stderr)
+    except OSError as exc:
+        if exc.filename is None:
+            _quiet_stdout()
+        if exc.errno == errno.EPIPE:  # the reader went away: nothing more to say to it
+            return 141
+        print(f"ctmtab {args.command}: {_os_error_line(exc)}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print(f"ctmtab {args.command}: interrupted", file=sys.stderr)

@@ -54,8 +54,8 @@ def run(folder="ctmtab-demo", out=print) -> dict:
     out("\nWhere the switch score is most wrong (exact CTM vs the fitted score):")
     for w in worst:
         out(f"  {w['key']:>12}  exact {w['exact']:.2f} bits, fitted {w['fitted']:.2f}")
-    out("\nVolunteers (48 taps): BDM with blocks of 11 (recursive remainder) vs zlib")
-    bdm = BDM(table, 11, mode="recursive")
+    out("\nVolunteers (48 taps): BDM with blocks of 11 (the remainder in smaller blocks) vs zlib")
+    bdm = BDM(table, 11, mode="shrink")
     rows = {}
     for name, taps in invented_volunteers().items():
         rows[name] = {"bdm": bdm(taps), "zlib_bits": compressed_bits(taps), "switch": switch_score(

@@ -18,6 +18,7 @@ def _plt():
 
 def plot_table(table, folder) -> list[Path]:
     """CTM against rank, the halting-step histogram, and the mass by output size."""
+    table.require_halting()  # nothing to draw, and log2(0), without one halting run
     plt = _plt()
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
@@ -70,8 +71,14 @@ def plot_report(report, path, title: str = "") -> Path:
 
 
 def _save(fig, path: Path) -> Path:
+    import io
+
+    from ..fsutil import write_atomic
+
     fig.tight_layout()
-    fig.savefig(path, dpi=110)
+    buf = io.BytesIO()
+    fig.savefig(buf, dpi=110, format="png")
+    write_atomic(path, buf.getvalue(), durable=False)  # a killed plot leaves no half PNG
     import matplotlib.pyplot as plt
 
     plt.close(fig)

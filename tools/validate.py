@@ -28,26 +28,83 @@ def resolve(spec: str):
     if ":" not in spec:
         return builtin(spec)
     mod, _, fn = spec.partition(":")
+    if not mod.strip() or not fn.strip():
+        raise CtmtabError(f"estimator {spec!r} names no module or no function; give module:function, "
+                          "e.g. mypkg.scores:score")
     try:
-        return getattr(importlib.import_module(mod), fn)
-    except (ImportError, AttributeError) as exc:
-        raise CtmtabError(f"cannot import estimator {spec!r} ({exc}); give module:function on PYTHONPATH") from None
+        found = getattr(importlib.import_module(mod), fn)
+    except Exception as exc:  # any failure while importing user code is bad input, not a crash
+        raise CtmtabError(f"cannot import estimator {spec!r} ({_one_line(exc)}); "
+                          "give module:function on PYTHONPATH") from None
+    if not callable(found):
+        raise CtmtabError(f"estimator {spec!r} names a {type(found).__name__} value, not a function; "
+                          "give module:function")
+    return found
+
+
+def _one_line(exc: BaseException) -> str:
+    text = " ".join(str(exc).split())
+    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
 
 
 def values_from_csv(path) -> dict:
-    """key,value rows (a header line is skipped) -> {key: float}."""
-    out = {}
+    """key,value rows (a header line is skipped) -> {key: float}. UTF-8, with or without a
+    byte-order mark; a key given twice is refused (which value was meant is unknowable)."""
+    out, first = {}, {}
     try:
-        with open(path, newline="") as f:
+        with open(path, newline="", encoding="utf-8-sig") as f:
             for i, row in enumerate(csv.reader(f)):
                 if not row or (i == 0 and not _is_number(row[-1])):
                     continue
                 if len(row) != 2 or not _is_number(row[1]):
                     raise CtmtabError(f"{path}: line {i + 1} is not key,value; fix the file")
-                out[row[0].strip()] = float(row[1])
+                key = row[0].strip()
+                if key in first:
+                    raise CtmtabError(f"{path}: key {key!r} on line {i + 1} was already given on line "
+                                      f"{first[key]}; keep one value per key")
+                first[key] = i + 1
+                out[key] = float(row[1])
     except FileNotFoundError:
         raise CtmtabError(f"no values file {path}; check the path") from None
+    except UnicodeDecodeError as exc:
+        raise CtmtabError(f"{path} is not UTF-8 text (byte 0x{exc.object[exc.start]:02x} at offset "
+                          f"{exc.start}); save it as UTF-8") from None
+    except csv.Error as exc:
+        raise CtmtabError(f"{path} is not a CSV file ({_one_line(exc)}); give key,value rows") from None
     return out
+
+
+def shapes_from_text(table, text: str | None):
+    """--sizes text -> the table's shapes it selects (None: all). 1D: lengths and ranges such as
+    5-11; 2D: shapes such as 3x3. Ranges are matched against the table's own sizes, so a huge
+    range costs nothing."""
+    if text is None:
+        return None
+    have = table.shapes
+    out = []
+    for part in text.split(","):
+        part = part.strip()
+        try:
+            if "x" in part:
+                shape = tuple(int(v) for v in part.split("x"))
+                if len(shape) != table.space.dims or min(shape) < 1:
+                    raise ValueError
+                out.append(shape)
+            elif "-" in part:
+                lo, hi = (int(v) for v in part.split("-"))
+                if table.space.dims != 1 or lo < 1 or lo > hi:
+                    raise ValueError
+                out += [s for s in have if lo <= s[0] <= hi]
+            else:
+                n = int(part)
+                if table.space.dims != 1 or n < 1:
+                    raise ValueError
+                out.append((n,))
+        except ValueError:
+            kind = "a length, a range like 5-11" if table.space.dims == 1 else "a shape like 3x3"
+            raise CtmtabError(f"--sizes {text!r}: {part!r} is not {kind} for this "
+                              f"{table.space.dims}D table") from None
+    return list(dict.fromkeys(out))
 
 
 def _is_number(text: str) -> bool:
@@ -70,6 +127,7 @@ class Report:
     by_size: dict = field(default_factory=dict)
     worst: list = field(default_factory=list)
     pairs: tuple = (None, None)  # exact, estimated arrays (for plots)
+    rare: int = 0  # sampled tables: keys scored that were seen in fewer than table.min_seen samples
 
     @property
     def coverage(self) -> float:
@@ -79,7 +137,7 @@ class Report:
         return {"keys": self.keys, "scored": self.scored, "coverage": self.coverage,
                 "spearman": self.spearman, "kendall": self.kendall, "mae_after_linear_fit": self.mae_linear,
                 "fit": {"slope": self.slope, "intercept": self.intercept},
-                "by_size": self.by_size, "worst": self.worst}
+                "by_size": self.by_size, "worst": self.worst, "rare_keys": self.rare}
 
 
 def _corr(exact: np.ndarray, est: np.ndarray) -> tuple:
@@ -97,23 +155,38 @@ def validate(table, estimator=None, values: dict | None = None, sizes=None, wors
         raise CtmtabError("give an estimator or a values file, not both")
     shapes = table.shapes if sizes is None else [(s,) if isinstance(s, int) else tuple(s) for s in sizes]
     keys, exact, est, size = [], [], [], []
+    rare = 0
+    log_total = math.log2(table.total) if table.total else math.nan
     for shape in shapes:
-        for key, _count in table.items(shape):
+        if shape in table.groups and table.mode == "sampled" and table.min_seen > 0:
+            rare += int(np.count_nonzero(table._group_seen(table.groups[shape]) < table.min_seen))
+        for key, count in table.items(shape):
             keys.append(key)
-            exact.append(table.ctm(key))
+            exact.append(log_total - math.log2(count))  # table.ctm(key), without a lookup per key
             size.append("x".join(map(str, shape)))
             if values is not None:
                 est.append(values.get(key, math.nan))
-            else:
-                try:
-                    v = float(estimator(key))
-                except Exception:  # an estimator that cannot score a key counts as uncovered
-                    v = math.nan
-                est.append(v)
+                continue
+            try:
+                v = estimator(key)
+            except Exception as exc:  # a broken estimator must not pass for one that covers nothing
+                raise CtmtabError(f"the estimator failed on key {key!r} ({_one_line(exc)}); fix it, or "
+                                  "return NaN for keys it cannot score") from None
+            try:
+                est.append(float(v))
+            except (TypeError, ValueError):
+                raise CtmtabError(f"the estimator returned {v!r:.60} for key {key!r}, not a number; "
+                                  "return a number, or NaN for keys it cannot score") from None
     if not keys:
-        raise CtmtabError("the table holds no keys of the chosen sizes")
+        held = ", ".join("x".join(map(str, x)) for x in table.shapes[:4]) + (", ..." if len(table.shapes) > 4 else "")
+        raise CtmtabError(f"the table holds no keys of the chosen sizes (it holds sizes {held or 'none'}); "
+                          "choose others with --sizes")
     exact, est = np.array(exact), np.array(est, dtype=float)
     ok = np.isfinite(est)
+    if not ok.any():  # nothing to compare: say so rather than print NaN correlations
+        why = ("the values file names none of them (keys are symbol strings such as "
+               f"{keys[0]!r})" if values is not None else "the estimator gave NaN or inf for every one")
+        raise CtmtabError(f"none of the {len(keys):,} keys was scored: {why}")
     e, v = exact[ok], est[ok]
     rho, tau = _corr(e, v)
     if ok.sum() >= 2 and np.ptp(v) > 0:
@@ -133,4 +206,4 @@ def validate(table, estimator=None, values: dict | None = None, sizes=None, wors
     worst_rows = [{"key": str(kept[i]), "exact": float(e[i]), "estimate": float(v[i]),
                    "fitted": float(slope * v[i] + intercept)} for i in order]
     return Report(len(keys), int(ok.sum()), rho, tau, mae, float(slope), float(intercept),
-                  by_size, worst_rows, (e, v))
+                  by_size, worst_rows, (e, v), rare)
