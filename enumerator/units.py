@@ -94,7 +94,8 @@ def _dec(v) -> int:
     return int(v)
 
 
-INT_FIELDS = ("halting", "non_halting", "undecided", "halting_nodes", "longest_run", "most_nonblank", "steps")
+INT_FIELDS = ("halting", "non_halting", "undecided", "halting_nodes", "longest_run", "most_nonblank", "steps",
+              "undecided_nodes")
 
 
 def dump_result(result: dict) -> bytes:
@@ -102,6 +103,10 @@ def dump_result(result: dict) -> bytes:
     rec["raw"] = [[k, _enc(v)] for k, v in sorted(result["raw"].items())]
     rec["hist_steps"] = [_enc(v) for v in result["hist_steps"]]
     rec["hist_len"] = [_enc(v) for v in result["hist_len"]]
+    rec["proven"] = [_enc(v) for v in result["proven"]]
+    rec["undecided_by_size"] = [[r, c, _enc(w)] for (r, c), w in sorted(result["undecided_by_size"].items())]
+    if "holdouts" in result:
+        rec["holdouts"] = result["holdouts"]
     return msgpack.packb(rec, use_bin_type=True)
 
 
@@ -111,4 +116,10 @@ def load_result(data: bytes) -> dict:
     out["raw"] = {bytes(k): _dec(v) for k, v in rec["raw"]}
     out["hist_steps"] = [_dec(v) for v in rec["hist_steps"]]
     out["hist_len"] = [_dec(v) for v in rec["hist_len"]]
+    out["proven"] = [_dec(v) for v in rec["proven"]]
+    out["undecided_by_size"] = {(_dec(r), _dec(c)): _dec(w) for r, c, w in rec["undecided_by_size"]}
+    if "holdouts" in rec:
+        if not isinstance(rec["holdouts"], bytes):
+            raise ValueError("holdouts are not bytes")
+        out["holdouts"] = rec["holdouts"]
     return out
