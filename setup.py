@@ -15,7 +15,8 @@ class BuildPy(build_py):
 
 core = Extension(
     "ctmtab.enumerator._core",
-    sources=["enumerator/_core.pyx", "enumerator/csrc/ctm_core.c", "enumerator/csrc/ctm_map.c"],
+    sources=["enumerator/_core.pyx", "enumerator/csrc/ctm_core.c", "enumerator/csrc/ctm_map.c",
+             "enumerator/csrc/ctm_prove.c"],
     depends=["enumerator/csrc/ctm_core.h", "enumerator/csrc/ctm_count.h", "enumerator/csrc/ctm_search.inc"],
     include_dirs=["enumerator"],
     extra_compile_args=["-O3", "-std=gnu99"],

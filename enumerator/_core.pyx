@@ -13,6 +13,7 @@ cdef extern from "csrc/ctm_core.h" nogil:
     int CTM_NX_HALT, CTM_NX_UNDEF
     int CTM_MAX_ENTRIES
     int CTM_MAX_CAP_2D
+    int CTM_DEC_COUNT
     const char *ctm_strerror(int code)
     ctypedef struct ctm_map:
         uint64_t *hashes
@@ -32,9 +33,16 @@ cdef extern from "csrc/ctm_core.h" nogil:
         uint64_t probe_seed
         ctm_map raw
         ctm_count halting, non_halting, undecided
+        ctm_count proven[5]
+        ctm_map undec
+        int keep_holdouts
+        int64_t cps_at
+        uint8_t *holdouts
+        size_t n_holdouts
         ctm_count *hist_steps
         ctm_count *hist_len
         uint64_t halting_nodes
+        uint64_t undecided_nodes
         int64_t longest_run, most_nonblank
         uint64_t steps
         uint16_t *cuts
@@ -47,6 +55,18 @@ cdef extern from "csrc/ctm_core.h" nogil:
     int ctm_unit_run(ctm_unit *u)
     int ctm_sample(ctm_unit *u, uint64_t count)
     void ctm_unit_free(ctm_unit *u)
+    ctypedef struct ctm_machine:
+        int n, m
+        const int8_t *def_ "def"
+        const uint8_t *wr
+        const int8_t *mv
+        const uint8_t *nx
+    ctypedef struct ctm_cps_ws:
+        pass
+    ctm_cps_ws *ctm_cps_ws_new()
+    int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts)
+    int ctm_cps_attempts()
+    int ctm_cps_set_plan(const int *plan, int count)
     ctypedef struct ctm_run_result:
         int status
         uint64_t steps
@@ -88,6 +108,10 @@ cdef object _int(const ctm_count *x):
     return (int(ctm_count_hi(x)) << 64) | int(ctm_count_lo(x))
 
 
+# 1D: try CPS when a segment reaches this step, so a proof saves the run to the cap
+cdef int64_t CPS_AT = 128
+
+
 cdef _setup(ctm_unit *u, int dims, int n, int m, int64_t cap, unsigned deciders):
     memset(u, 0, sizeof(ctm_unit))
     u.dims = dims
@@ -96,16 +120,28 @@ cdef _setup(ctm_unit *u, int dims, int n, int m, int64_t cap, unsigned deciders)
     u.cap = cap
     u.deciders = deciders
     u.cut_depth = -1
+    u.cps_at = CPS_AT if cap > CPS_AT else 0
+
+
+cdef dict _map_items(ctm_map *mp):
+    cdef size_t j
+    out = {}
+    for j in range(mp.cap):
+        if mp.hashes[j]:
+            out[mp.arena[mp.offs[j]:mp.offs[j] + mp.lens[j]]] = _int(&mp.vals[j])
+    return out
 
 
 cdef dict _result(ctm_unit *u, int64_t cap):
-    cdef size_t j
     cdef int64_t i
-    raw = {}
-    for j in range(u.raw.cap):
-        if u.raw.hashes[j]:
-            raw[u.raw.arena[u.raw.offs[j]:u.raw.offs[j] + u.raw.lens[j]]] = _int(&u.raw.vals[j])
+    cdef int k
+    raw = _map_items(&u.raw)
+    undec = {}
+    for key, w in _map_items(&u.undec).items():
+        undec[(int.from_bytes(key[:4], "little"), int.from_bytes(key[4:], "little"))] = w
     return dict(
+        proven=[_int(&u.proven[k]) for k in range(CTM_DEC_COUNT)],
+        undecided_by_size=undec,
         raw=raw,
         halting=_int(&u.halting),
         non_halting=_int(&u.non_halting),
@@ -113,6 +149,7 @@ cdef dict _result(ctm_unit *u, int64_t cap):
         hist_steps=[_int(&u.hist_steps[i]) for i in range(cap + 1)],
         hist_len=[_int(&u.hist_len[i]) for i in range(cap + 2)],
         halting_nodes=int(u.halting_nodes),
+        undecided_nodes=int(u.undecided_nodes),
         longest_run=int(u.longest_run),
         most_nonblank=int(u.most_nonblank),
         steps=int(u.steps),
@@ -135,7 +172,8 @@ def sample_unit(int dims, int n, int m, int64_t cap, unsigned deciders, uint64_t
         ctm_unit_free(&u)
 
 
-def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), int cut_depth=-1):
+def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), int cut_depth=-1,
+             bint holdouts=False, int64_t cps_at=-1):
     """Enumerate one work unit of the space (dims, n, m) under cap.
 
     prefix: the move-option indices to follow through the first len(prefix)
@@ -149,6 +187,9 @@ def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), 
     cdef size_t j
     _setup(&u, dims, n, m, cap, deciders)
     u.cut_depth = cut_depth
+    u.keep_holdouts = holdouts
+    if cps_at >= 0:
+        u.cps_at = cps_at
     if k:
         pre = <uint16_t *>malloc(k * sizeof(uint16_t))
         if pre == NULL:
@@ -165,6 +206,8 @@ def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), 
         out = _result(&u, cap)
         out["cuts"] = [(tuple(u.cuts[j * cut_depth + i] for i in range(cut_depth)), _int(&u.cut_weights[j]))
                        for j in range(u.n_cuts)] if cut_depth >= 0 else []
+        rec = 4 * n * m + 16 + 24
+        out["holdouts"] = bytes(u.holdouts[:u.n_holdouts * rec]) if u.n_holdouts else b""
         return out
     finally:
         ctm_unit_free(&u)
@@ -214,3 +257,54 @@ def run_machine(int n, int m, const uint8_t[:] wr, const int8_t[:] mv, const int
     finally:
         ctm_free(res.output)
     return res.status, int(res.steps), res.state, int(res.nonblank), output, int(res.head)
+
+
+CPS_ATTEMPTS = ctm_cps_attempts()
+cdef ctm_cps_ws *_cps_ws = NULL
+
+
+cdef ctm_cps_ws *_ws() except NULL:
+    """One CPS workspace for this process's calls from Python (they hold the GIL)."""
+    global _cps_ws
+    if _cps_ws == NULL:
+        _cps_ws = ctm_cps_ws_new()
+        if _cps_ws == NULL:
+            raise MemoryError("out of memory")
+    return _cps_ws
+
+
+def cps_prove(int n, int m, const int8_t[:] defined, const uint8_t[:] wr, const int8_t[:] mv,
+              const uint8_t[:] nx, int attempts=-1):
+    """n-gram CPS on one partial 1D machine (defined[e] 1 = MOVE, mv 0 = R, 1 = L):
+    the 1-based attempt of the schedule that proved non-halting, or 0."""
+    cdef ctm_machine mc
+    cdef int rc
+    if n < 1 or m < 2 or n * m > CTM_MAX_ENTRIES:
+        raise ValueError("a machine needs 1 or more states, 2 or more symbols, and at most 64 entries")
+    if defined.shape[0] != n * m or wr.shape[0] != n * m or mv.shape[0] != n * m or nx.shape[0] != n * m:
+        raise ValueError("transition arrays must have n*m entries")
+    mc.n = n
+    mc.m = m
+    mc.def_ = &defined[0]
+    mc.wr = &wr[0]
+    mc.mv = &mv[0]
+    mc.nx = &nx[0]
+    cdef ctm_cps_ws *ws = _ws()
+    rc = ctm_cps1d(ws, &mc, attempts if attempts >= 0 else ctm_cps_attempts())
+    if rc < 0:
+        _check(rc)
+    return rc
+
+
+def set_cps_schedule(schedule):
+    """Replace this process's CPS schedule: (window, history, log2 of the configurations allowed)
+    triples, tried in order. For measurements; every schedule is sound, some are slower."""
+    cdef int buf[96]
+    cdef int i, j
+    items = [tuple(x) for x in schedule]
+    if not 1 <= len(items) <= 32:
+        raise ValueError("a CPS schedule has 1 to 32 attempts")
+    for i in range(len(items)):
+        for j in range(3):
+            buf[3 * i + j] = items[i][j]
+    _check(ctm_cps_set_plan(buf, len(items)))

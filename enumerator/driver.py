@@ -16,9 +16,8 @@ from .spool import Spool, kept
 from .tally import Partial, Tally, images_per_sample, relative_sample_errors, sample_sums, size_of
 from .units import Plan, default_depth, make_plan, unit_weight_ok
 
-# Decider names and their bits in the C core. None of them may change a count.
-DECIDERS = {"full-table": 1, "escapee": 2, "cycler": 4, "translated-cycler": 8}
-ALL_DECIDERS = tuple(DECIDERS)
+from .bounds import bound_reached
+from .deciders import ALL_DECIDERS, DECIDERS
 
 # Cost model of the estimate, single-core seconds, fitted to builds on this project's machine:
 # 1D to the (4,2) and (5,2) figures of README.md (Performance); 2D to (3,2) and (2,3) at caps
@@ -40,6 +39,15 @@ def decider_bits(names) -> int:
         if name not in DECIDERS:
             raise SpaceError(f"unknown decider {name!r}; choose from {', '.join(DECIDERS)}")
         bits |= DECIDERS[name]
+    return bits
+
+
+def search_bits(space: Space, cap: int, deciders) -> int:
+    """The decider bits an exhaustive search runs with. At a cap at or past a proven busy-beaver
+    bound every undecided node is proven by the bound, so the CPS would only cost time."""
+    bits = decider_bits(deciders)
+    if bound_reached(space, cap) is not None:
+        bits &= ~DECIDERS["ngram-cps"]
     return bits
 
 
@@ -83,7 +91,7 @@ def plan(space: Space, cap: int, depth: int | None = None, deciders=ALL_DECIDERS
     """The deterministic unit list of a build (top of the tree run exactly)."""
     _prepare(space, cap)
     depth = default_depth(space) if depth is None else depth
-    return make_plan(space, cap, depth, decider_bits(deciders), tuple(deciders))
+    return make_plan(space, cap, depth, search_bits(space, cap, deciders), tuple(deciders))
 
 
 def estimate(space: Space, cap: int, deciders=ALL_DECIDERS, walks: int = 20_000, seed: int = 1,
@@ -95,7 +103,7 @@ def estimate(space: Space, cap: int, deciders=ALL_DECIDERS, walks: int = 20_000,
     which a pilot over PILOT_UNITS evenly spaced units will do, when probing every
     unit would itself cost much (2D: each probe sets up the whole grid)."""
     p = at if at is not None else plan(space, cap, None, deciders)
-    bits = decider_bits(deciders)
+    bits = search_bits(space, cap, deciders)
     per_unit = max(4, walks // max(1, len(p.units)))
     cells = _grid_cells(space, cap)
 
@@ -131,6 +139,7 @@ def build(
     spool: str | None = None,
     budget_hours: float | None = DEFAULT_BUDGET_HOURS,
     on_progress=None,
+    holdouts: bool = False,
 ) -> Tally:
     """Enumerate every machine of the space under cap; return the exact tally.
 
@@ -139,7 +148,8 @@ def build(
     cluster. shard=(i, N) builds units i mod N only. spool names a folder where
     finished units are kept, so a killed build resumes. The tally is the same for
     every split, executor, shard merge and resume. on_progress(done, total,
-    weight_done, weight_total, steps) is called as units finish."""
+    weight_done, weight_total, steps) is called as units finish. holdouts keeps
+    every undecided node in part.holdouts (see holdout_lines)."""
     _prepare(space, cap)
     if budget_hours is not None and not (isinstance(budget_hours, (int, float)) and 0 < budget_hours < math.inf):
         raise SpaceError(f"the budget must be a positive number of CPU-hours, got {budget_hours!r}; "
@@ -169,6 +179,8 @@ def build(
     chosen = p.select(shard)
     store = _exhaustive_spool(spool, p, chosen) if spool else None
     results = store.finished() if store else {}
+    if holdouts:  # parts spooled without their holdouts are run again
+        results = {k: r for k, r in results.items() if "holdouts" in r or not r["undecided_nodes"]}
     resumed = len(results)
     part = Partial()
     weight_total = sum(p.unit(k).weight for k in chosen)
@@ -187,10 +199,14 @@ def build(
 
     for index, result in sorted(results.items()):
         accept(index, result)
+    bits = search_bits(space, cap, deciders)
     if 0 in chosen and 0 not in results:  # the plan computed the top already: never spooled
-        accept(0, p.top)
-    bits = decider_bits(deciders)
-    tasks = [(space.dims, space.states, space.symbols, cap, bits, k, p.unit(k).prefix)
+        top = p.top
+        if holdouts and top["undecided_nodes"]:  # the plan's top run kept no holdouts
+            top = _core.run_unit(space.dims, space.states, space.symbols, cap, bits, (), p.depth or -1, True)
+            top.pop("cuts")
+        accept(0, top)
+    tasks = [(space.dims, space.states, space.symbols, cap, bits, k, p.unit(k).prefix, holdouts)
              for k in chosen if k != 0 and k not in results]
     with kept(store):
         for index, result in executors.stream(tasks, workers, scheduler):
@@ -205,6 +221,7 @@ def build(
     tally.seconds = time.perf_counter() - t0
     tally.resumed = resumed
     tally.spool_damaged = store.damaged if store else 0
+    tally.holdouts = part.holdouts if holdouts and tally.step_bound is None else []
     return tally
 
 
@@ -368,4 +385,5 @@ def sample(space: Space, cap: int, samples: int | None, *, seed: int = 1, decide
 
 def run_unit(space: Space, cap: int, unit, deciders=ALL_DECIDERS) -> dict:
     """The raw result of one unit of a plan."""
-    return _core.run_unit(space.dims, space.states, space.symbols, cap, decider_bits(deciders), unit.prefix, -1)
+    return _core.run_unit(space.dims, space.states, space.symbols, cap, search_bits(space, cap, deciders),
+                          unit.prefix, -1)

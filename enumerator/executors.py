@@ -13,9 +13,10 @@ from .native import core as _core
 
 
 def run_task(task: tuple) -> tuple:
-    """One unit: (dims, n, m, cap, bits, index, prefix) -> (index, result). Top level, so it pickles."""
-    dims, n, m, cap, bits, index, prefix = task
-    return index, _core.run_unit(dims, n, m, cap, bits, prefix, -1)
+    """One unit: (dims, n, m, cap, bits, index, prefix[, holdouts]) -> (index, result). Top level,
+    so it pickles."""
+    dims, n, m, cap, bits, index, prefix = task[:7]
+    return index, _core.run_unit(dims, n, m, cap, bits, prefix, -1, len(task) > 7 and bool(task[7]))
 
 
 def run_sample_task(task: tuple) -> tuple:

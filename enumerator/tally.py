@@ -8,6 +8,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import InvariantError, MergeError
+from .bounds import bound_reached
+from .deciders import DECIDERS, STEP_BOUND
 from .space import Space
 
 
@@ -26,6 +28,10 @@ class Partial:
     longest_run: int = 0
     most_nonblank: int = 0
     steps: int = 0
+    undecided_nodes: int = 0
+    proven: list = field(default_factory=list)  # non-halting weight by decider, in DECIDERS order
+    undecided_by_size: dict = field(default_factory=dict)  # (rows, cols) at the cap -> weight
+    holdouts: list = field(default_factory=list)  # per unit: packed undecided nodes (core records)
 
     def add(self, unit: dict) -> None:
         raw = self.raw
@@ -33,6 +39,13 @@ class Partial:
             raw[key] = raw.get(key, 0) + w
         for name in ("halting", "non_halting", "undecided", "halting_nodes", "steps"):
             setattr(self, name, getattr(self, name) + unit[name])
+        self.undecided_nodes += unit.get("undecided_nodes", 0)
+        self.proven = _add_lists(self.proven, unit.get("proven", []))
+        by_size = self.undecided_by_size
+        for size, w in unit.get("undecided_by_size", {}).items():
+            by_size[size] = by_size.get(size, 0) + w
+        if unit.get("holdouts"):
+            self.holdouts.append(unit["holdouts"])
         self.hist_steps = _add_lists(self.hist_steps, unit["hist_steps"])
         self.hist_len = _add_lists(self.hist_len, unit["hist_len"])
         self.longest_run = max(self.longest_run, unit["longest_run"])
@@ -235,6 +248,11 @@ class Tally:
     moments: dict | None = None  # sampled: shape -> {key: sum over samples of (images equal to key)^2}
     streams: list | None = None  # sampled: (seed, size) of every stream the samples came from
     until: dict | None = None    # sampled with a target: the target and what stopped the build
+    proofs: dict | None = None   # decider name -> non-halting weight it proved; None: not recorded
+    undecided_by_size: dict | None = None  # (rows, cols) an undecided run had reached -> weight
+    undecided_nodes: int = 0     # tree nodes left undecided
+    step_bound: tuple | None = None  # (S, source) when cap >= a proven busy-beaver bound
+    holdouts: list = field(default_factory=list, repr=False)  # packed undecided nodes, if kept
 
     def __post_init__(self):
         if self.weight is None:
@@ -276,6 +294,7 @@ class Tally:
                     length_hist=_trim(part.hist_len), longest_run=part.longest_run,
                     most_nonblank=part.most_nonblank, steps=part.steps, mode="sampled", samples=samples,
                     seed=seed, moments=moments, weight=samples, covered=None, **extra)
+        tally.record_proofs(part)
         tally.check()
         return tally
 
@@ -312,8 +331,24 @@ class Tally:
             steps=part.steps,
             **extra,
         )
+        tally.record_proofs(part)
         tally.check()
         return tally
+
+    def record_proofs(self, part: Partial) -> None:
+        """Which decider proved how much, the undecided weight by the size reached, and, at a
+        cap at or past a proven busy-beaver bound, every undecided node proven by the bound."""
+        self.proofs = {name: (part.proven[i] if i < len(part.proven) else 0) for i, name in enumerate(DECIDERS)}
+        self.undecided_by_size = dict(sorted(part.undecided_by_size.items()))
+        self.undecided_nodes = part.undecided_nodes
+        bound = bound_reached(self.space, self.cap)
+        if bound is not None and self.mode == "exhaustive":
+            self.step_bound = bound
+            self.proofs[STEP_BOUND] = self.undecided
+            self.non_halting += self.undecided
+            self.undecided = 0
+            self.undecided_by_size = {}
+            self.undecided_nodes = 0
 
     def check(self) -> None:
         """Raise InvariantError unless every exactness invariant holds."""
@@ -325,6 +360,10 @@ class Tally:
             )
         if self.mode == "exhaustive" and self.covered is None and self.weight != self.space.size:
             raise InvariantError("a complete build does not cover the space size; this is a bug")
+        if self.proofs is not None and sum(self.proofs.values()) != self.non_halting:
+            raise InvariantError("the proofs by decider do not sum to the non-halting weight; this is a bug")
+        if self.undecided_by_size is not None and sum(self.undecided_by_size.values()) != self.undecided:
+            raise InvariantError("the undecided weight by size does not sum to the undecided weight; this is a bug")
         if sum(self.steps_hist) != self.halting or sum(self.length_hist) != self.halting:
             raise InvariantError("a histogram does not sum to the halting weight; this is a bug")
         per_run = self.images if self.mode == "sampled" else self.blanks
@@ -395,5 +434,20 @@ def summed(tallies: list) -> dict:
         steps_hist=_trim(functools.reduce(_add_lists, (t.steps_hist for t in tallies), [])),
         length_hist=_trim(functools.reduce(_add_lists, (t.length_hist for t in tallies), [])),
         longest_run=max(t.longest_run for t in tallies), most_nonblank=max(t.most_nonblank for t in tallies),
-        steps=sum(t.steps for t in tallies),
+        steps=sum(t.steps for t in tallies), **_summed_proofs(tallies),
     )
+
+
+def _summed_proofs(tallies: list) -> dict:
+    """Proof records add like counts; a part without them (an older file) leaves the sum unknown."""
+    if any(t.proofs is None or t.undecided_by_size is None for t in tallies):
+        return dict(proofs=None, undecided_by_size=None, undecided_nodes=0, step_bound=None)
+    proofs: dict = {}
+    by_size: dict = {}
+    for t in tallies:
+        for name, w in t.proofs.items():
+            proofs[name] = proofs.get(name, 0) + w
+        for size, w in t.undecided_by_size.items():
+            by_size[size] = by_size.get(size, 0) + w
+    return dict(proofs=proofs, undecided_by_size=dict(sorted(by_size.items())),
+                undecided_nodes=sum(t.undecided_nodes for t in tallies), step_bound=tallies[0].step_bound)

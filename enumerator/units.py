@@ -94,15 +94,21 @@ def _dec(v) -> int:
     return int(v)
 
 
-INT_FIELDS = ("halting", "non_halting", "undecided", "halting_nodes", "longest_run", "most_nonblank", "steps")
+INT_FIELDS = ("halting", "non_halting", "undecided", "halting_nodes", "longest_run", "most_nonblank", "steps",
+              "undecided_nodes")
 
 
 def dump_result(result: dict) -> bytes:
-    """Every field of a result: integers, lists of integers, and the raw map of bytes to integers
-    (a map so that fields the core gains later travel too)."""
+    """Every field of a result: integers, lists of integers, the raw map of bytes to integers,
+    the undecided weight by size and the holdout records (a map, so that fields the core gains
+    later travel too)."""
     rec = {}
     for name, v in result.items():
-        if isinstance(v, dict):
+        if name == "undecided_by_size":
+            rec[name] = {"sizes": [[r, c, _enc(w)] for (r, c), w in sorted(v.items())]}
+        elif isinstance(v, bytes):
+            rec[name] = v
+        elif isinstance(v, dict):
             rec[name] = {"pairs": [[k, _enc(x)] for k, x in sorted(v.items())]}
         elif isinstance(v, (list, tuple)):
             rec[name] = [_enc(x) for x in v]
@@ -115,13 +121,17 @@ def load_result(data: bytes) -> dict:
     rec = msgpack.unpackb(data, raw=False, strict_map_key=True)
     out = {}
     for name, v in rec.items():
-        if isinstance(v, dict):
+        if name == "undecided_by_size":
+            out[name] = {(_dec(r), _dec(c)): _dec(w) for r, c, w in v["sizes"]}
+        elif isinstance(v, bytes):
+            out[name] = v
+        elif isinstance(v, dict):
             out[name] = {bytes(k): _dec(x) for k, x in v["pairs"]}
         elif isinstance(v, list):
             out[name] = [_dec(x) for x in v]
         else:
             out[name] = _dec(v)
-    for name in INT_FIELDS + ("raw", "hist_steps", "hist_len"):  # a record missing one is damaged
-        if name not in out:
+    for name in INT_FIELDS + ("raw", "hist_steps", "hist_len", "proven", "undecided_by_size"):
+        if name not in out:  # a record missing one is damaged
             raise ValueError(f"no {name}")
     return out

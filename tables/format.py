@@ -21,7 +21,7 @@ from ..errors import (BadMagicError, ChecksumError, InconsistentTableError, Size
                       TableError, TruncatedError, VersionError)
 
 MAGIC = b"\x8cCTMTAB\x1a"
-MAJOR, MINOR = 1, 2  # 1.1 added sampled tables (header "sample", group "moments"); 1.2 sample "streams"
+MAJOR, MINOR = 1, 3  # 1.1 sampled tables (header "sample", group "moments"); 1.2 sample "streams"; 1.3 "certificate"
 PREAMBLE = struct.Struct("<8sHHIQ32s")  # magic, major, minor, header len, body len, header sha256
 MAX_HEADER = 1 << 20
 MAX_BODY = 1 << 31  # default cap on the decompressed body (and READ_PEAK x it must be free); load(max_body=...)

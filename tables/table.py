@@ -16,6 +16,7 @@ from .._version import __version__
 from ..enumerator.space import Space
 from ..enumerator.tally import relabelling, relative_sample_errors, sample_errors
 from ..errors import InconsistentTableError, MissingKeyError, RareKeyWarning, SpaceError, TableError
+from . import certify
 from . import format as fmt
 from .arrays import codes_of, encode_counts, exact_sum, fits_code64, symbols_of
 
@@ -92,6 +93,7 @@ class Table:
         self.min_seen = DEFAULT_MIN_SEEN
         self._index = {}
         self.total = sum(exact_sum(g.counts) for g in groups.values())
+        self.certificate = certify.parse(header, self.non_halting, self.undecided, self.cap)
 
     # ---- identity and totals
     @property
@@ -190,6 +192,9 @@ class Table:
                 header["build"]["until"] = tally.until
             header["invariant"] = ("halting + non_halting + undecided = sample size (totals count samples); "
                                    "counts sum to images_per_sample x halting")
+        certificate = certify.header_field(tally)
+        if certificate is not None:
+            header["certificate"] = certificate
         table = cls(header, groups, list(tally.steps_hist), list(tally.length_hist))
         header["keys"] = table._key_summary()
         return table
@@ -222,7 +227,17 @@ class Table:
             covered=None if covered == "all" else list(covered),
             weight=int(units.get("weight", self.space_size)), plan_ident=units.get("plan", ""),
             depth=units.get("depth", 0), shard=None if shard is None else tuple(shard), **sampled,
+            **self._certificate_fields(),
         )
+
+    def _certificate_fields(self) -> dict:
+        cert = self.certificate
+        if cert is None:
+            return {}
+        bound = cert.step_bound
+        return dict(proofs=dict(cert.proofs), undecided_by_size={(r, c): w for r, c, w in cert.by_size},
+                    undecided_nodes=cert.nodes,
+                    step_bound=None if bound is None else (bound["steps"], bound["source"]))
 
     def _key_summary(self) -> dict:
         return {"distinct": self.distinct, "groups": [[list(s), len(self.groups[s])] for s in self.shapes]}
@@ -384,10 +399,32 @@ class Table:
             self._warn_rare(key, c)
             low, high = _interval95(np.float64(c / self.total), np.float64(self.standard_error(key)))
             return float(low), float(high)
-        c, u, h = self.count(key), self.undecided_runs, self.total
-        low = math.log2(h + u) - math.log2(c + u) if c + u else math.inf
-        high = math.log2(h + u) - math.log2(c) if c else math.inf
-        return low, high
+        shape, pos = self._find(key)
+        c = 0 if pos < 0 else int(self.groups[shape].counts[pos])
+        low, high = certify.bounds(c, self.undecided_reach(shape), self.undecided_runs, self.total)
+        return float(low), float(high)
+
+    def undecided_reach(self, shape) -> int:
+        """Undecided runs that could still produce a key of this shape: the bound on its count's
+        error (all undecided runs for a table without a certificate)."""
+        if self.certificate is None:
+            return self.undecided_runs
+        return self.blanks * self.certificate.reach(tuple(shape))
+
+    def interval_widths(self) -> list:
+        """Per key shape: the keys and the widest certified interval among them, in bits."""
+        rows = []
+        for shape in self.shapes:
+            counts = np.asarray(self.groups[shape].counts, dtype=np.float64)
+            low, high = certify.bounds(counts, self.undecided_reach(shape), self.undecided_runs, self.total)
+            rows.append({"shape": "x".join(map(str, shape)), "keys": len(counts),
+                         "widest": float(np.max(high - low)) if len(counts) else 0.0})
+        return rows
+
+    @property
+    def exact(self) -> bool:
+        """An exhaustive table with nothing undecided: every count is the unbounded-runtime count."""
+        return self.mode == "exhaustive" and self.undecided == 0
 
     def standard_error(self, key) -> float:
         """Sampled tables: the standard error of the probability estimate (delta method, see
@@ -478,6 +515,12 @@ class Table:
                 self._missing("(one of the keys)", "raise")
             ctm[absent] = self._missing(None, missing)
         out = {"count": counts, "probability": counts / self.total, "ctm": ctm}
+        if self.mode == "exhaustive":  # certified bounds; one shape at a time for the reach
+            shapes = [shape] * len(counts) if isinstance(keys, np.ndarray) and keys.ndim == self.space.dims + 1 \
+                else [s for s, _ in parsed]
+            per_shape = {s: self.undecided_reach(s) for s in dict.fromkeys(shapes)}
+            reach = np.array([per_shape[s] for s in shapes], dtype=np.float64)
+            out["ctm_low"], out["ctm_high"] = certify.bounds(counts, reach, self.undecided_runs, self.total)
         if self.mode == "sampled":
             with np.errstate(divide="ignore", invalid="ignore"):
                 out["standard_error"] = np.where(counts > 0, self._errors(counts, moments), np.nan)
@@ -610,12 +653,20 @@ class Table:
             "ctm_max": log_total - math.log2(int(low)) if low else math.nan,
             "stats": self.header.get("stats", {}),
             "deciders": self.header.get("deciders", []),
+            "certificate": self._certificate_summary(),
             "format": self.header.get("_format", [fmt.MAJOR, fmt.MINOR]),
             "generator": self.header.get("generator", {}),
             "build": self.header.get("build", {}),
             "notes": self.header.get("notes", ""),
             **(self._sample_summary() if self.mode == "sampled" else {}),
         }
+
+    def _certificate_summary(self) -> dict | None:
+        cert = self.certificate
+        if cert is None or self.mode != "exhaustive":
+            return None
+        return {"exact": self.exact, "step_bound": cert.step_bound, "undecided_nodes": cert.nodes,
+                "proofs": dict(cert.proofs), "widest_interval_by_shape": self.interval_widths()}
 
     def _sample_summary(self) -> dict:
         """Per output size (1D length, 2D longer side): keys seen, the median and worst relative
@@ -637,10 +688,16 @@ class Table:
     def write_csv(self, out) -> None:
         """One row per key: the exact count, and for sampled tables the probability, its standard
         error, the CTM and its 95% interval (not certified)."""
-        if self.mode != "sampled":
-            out.write("key,count\n")
-            for k, c in self.items():
-                out.write(f"{k},{c}\n")
+        if self.mode != "sampled":  # the exact count, the CTM and its certified interval
+            out.write("key,count,ctm,ctm_low,ctm_high\n")
+            log_total = math.log2(self.total) if self.total else math.nan
+            for shape in self.shapes:
+                g = self.groups[shape]
+                low, high = certify.bounds(np.asarray(g.counts, dtype=np.float64), self.undecided_reach(shape),
+                                           self.undecided_runs, self.total)
+                for row, c, lo, hi in zip(g.rows(self.space.symbols), g.counts, low, high):
+                    out.write(f"{self.key_text(shape, row)},{int(c)},{log_total - math.log2(int(c)):.6g},"
+                              f"{lo:.6g},{hi:.6g}\n")
             return
         out.write("key,count,probability,standard_error,ctm,ctm_low,ctm_high\n")
         if not self.total:

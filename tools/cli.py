@@ -94,6 +94,8 @@ def _parser() -> argparse.ArgumentParser:
                    help="branch points above the work-unit cut; default from the space")
     p.add_argument("--budget-hours", type=_hours, default=24.0,
                    help="refuse builds estimated above this many CPU-hours; default 24")
+    p.add_argument("--holdouts", metavar="FILE",
+                   help="write every undecided node, one line each: machine, weight, step, size")
     p.add_argument("--notes", default="", help="free text stored in the header")
     p.add_argument("--builder", default=None,
                    help="who built it, stored in the header; default $CTMTAB_BUILDER, else nothing")
@@ -296,6 +298,10 @@ def cmd_build(a) -> int:
         raise CtmtabError(f"cannot write {output}: its folder does not exist")
     if Path(output).is_dir():  # refused now, not after the build
         raise CtmtabError(f"cannot write {output}: it is a folder; give a file name")
+    if a.holdouts is not None and sampled:
+        raise CtmtabError("--holdouts lists the undecided nodes of an exhaustive build; drop --sample")
+    if a.holdouts is not None and Path(a.holdouts).is_dir():
+        raise CtmtabError(f"cannot write holdouts to {a.holdouts}: it is a folder; give a file name")
     workers = a.workers if a.workers is not None else cores()
     # The spool sits beside the table; a device or pipe gets it in this folder, under the default name.
     special = Path(output).exists() and not Path(output).is_file()
@@ -311,7 +317,7 @@ def cmd_build(a) -> int:
         else:
             tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, workers=workers,
                           scheduler=a.scheduler, shard=shard, spool=spool, budget_hours=a.budget_hours,
-                          on_progress=bar)
+                          on_progress=bar, holdouts=a.holdouts is not None)
     finally:
         bar.close()
     if getattr(tally, "spool_damaged", 0):
@@ -333,6 +339,10 @@ def cmd_build(a) -> int:
     table.header["build"]["workers"] = "dask" if a.scheduler else workers
     try:
         table.save(output)
+        if a.holdouts is not None:
+            from ..enumerator import holdouts
+            from ..fsutil import write_atomic
+            write_atomic(a.holdouts, (holdouts.HEADER + "".join(holdouts.lines(space, tally.holdouts))).encode())
     except OSError as exc:  # the spool stays: the same command resumes once the cause is fixed
         if Path(spool).is_dir():
             exc.hint = f"the finished units are kept in {spool}; fix this and run the same command again"
@@ -383,6 +393,8 @@ def cmd_info(a) -> int:
     ]
     if s["notes"]:
         lines.append(f"  notes      {s['notes']}")
+    if t.mode == "exhaustive":
+        lines += _certificate_lines(t)
     if t.mode == "sampled":
         lines[1:2] = [lines[1], "  streams    " + ", ".join(f"seed {seed} ({n:,})" for seed, n in s["streams"])]
         lines.append(f"  error      relative standard error of each probability (95% interval ~ +-1.96x); "
@@ -399,6 +411,27 @@ def cmd_info(a) -> int:
                          f"{sum(r['rare_keys'] for r in tail):,} of them rare")
     print(_printable("\n".join(lines)))  # notes, command and builder come from the file
     return 0
+
+
+def _certificate_lines(t) -> list:
+    """What was proven, what remains undecided, and the widest certified interval per size."""
+    cert = t.certificate
+    if cert is None:
+        return ["  certified  by the total undecided weight (a table older than format 1.3)"]
+    out = []
+    if cert.step_bound is not None:
+        bound = cert.step_bound
+        out.append(f"  exact      every run left at the cap is proven non-halting by the step bound "
+                   f"S = {bound['steps']:,} ({bound['source']}): intervals are points")
+    else:
+        out.append(f"  undecided  {cert.nodes:,} tree nodes remain (list them with build --holdouts)")
+    proofs = ", ".join(f"{name} {w:,}" for name, w in cert.proofs.items() if w)
+    out.append(f"  proofs     {proofs or 'none'}")
+    widths = t.interval_widths()
+    if widths:
+        out.append("  widest certified interval by size (bits): " + ", ".join(
+            f"{w['shape']}: {w['widest']:.3g}" for w in widths[:16]) + (" ..." if len(widths) > 16 else ""))
+    return out
 
 
 def cmd_lookup(a) -> int:
@@ -425,7 +458,7 @@ def cmd_lookup(a) -> int:
         _emit(rows, True, "")
     else:
         sampled = t.mode == "sampled"
-        kind = "95% interval (sampled)" if sampled else "certified interval"
+        kind = "95% interval (sampled)" if sampled else ("exact (step bound)" if t.exact else "certified interval")
         print(f"{'key':<20} {'count':>22} {'probability':>12}" + (f" {'std error':>10}" if sampled else "")
               + f" {'CTM bits':>10}  {kind}")
         for r in rows:

@@ -30,6 +30,19 @@ void ctm_free(void *p) { free(p); }
 /* ---------------------------------------------------------------- setup */
 
 int ctm_unit_init(ctm_unit *u) {
+    /* every owned pointer is NULL before any early return, so ctm_unit_free is always safe */
+    u->tape = u->snap = u->scratch = NULL;
+    u->hist_steps = u->hist_len = NULL;
+    u->cuts = NULL;
+    u->cut_weights = NULL;
+    u->holdouts = NULL;
+    u->n_holdouts = u->holdouts_cap = 0;
+    u->cps_ws = NULL;
+    memset(&u->raw, 0, sizeof u->raw);
+    memset(&u->undec, 0, sizeof u->undec);
+    memset(u->save_buf, 0, sizeof u->save_buf);
+    memset(u->save_cap, 0, sizeof u->save_cap);
+    memset(u->proven, 0, sizeof u->proven);
     if (u->dims != 1 && u->dims != 2) return CTM_EINVAL;
     if (u->n < 1 || u->m < 2 || u->cap < 1 || u->n * u->m > CTM_MAX_ENTRIES || u->m > 255)
         return CTM_EINVAL;
@@ -44,8 +57,14 @@ int ctm_unit_init(ctm_unit *u) {
     ctm_count opts = (ctm_count)(ndir * u->n * u->m + u->m);
     ctm_count limit = ~(ctm_count)0 / (16 * (ctm_count)u->m); /* room for symmetry and blanks */
     u->pow_opts[0] = 1;
+    /* exhaustive weights need opts^nent in 128 bits; sampling counts samples and does not */
+    u->pow_overflow = 0;
     for (int k = 1; k <= u->nent; k++) {
-        if (u->pow_opts[k - 1] > limit / opts) return CTM_EOVERFLOW;
+        if (u->pow_overflow || u->pow_opts[k - 1] > limit / opts) {
+            u->pow_overflow = 1;
+            u->pow_opts[k] = 0;
+            continue;
+        }
         u->pow_opts[k] = u->pow_opts[k - 1] * opts;
     }
     u->factor[0] = 1;
@@ -73,6 +92,7 @@ int ctm_unit_init(ctm_unit *u) {
     }
     u->halting = u->non_halting = u->undecided = 0;
     u->halting_nodes = 0;
+    u->undecided_nodes = 0;
     u->longest_run = 0;
     u->most_nonblank = 0;
     u->steps = 0;
@@ -95,6 +115,7 @@ int ctm_unit_init(ctm_unit *u) {
     u->hist_steps = calloc((size_t)u->cap + 1, sizeof(ctm_count));
     u->hist_len = calloc((size_t)u->cap + 2, sizeof(ctm_count));
     int rc = ctm_map_init(&u->raw);
+    if (!rc) rc = ctm_map_init(&u->undec);
     if (rc || !u->tape || !u->snap || !u->scratch || !u->hist_steps || !u->hist_len) {
         ctm_unit_free(u);
         return CTM_ENOMEM;
@@ -114,6 +135,11 @@ void ctm_unit_free(ctm_unit *u) {
     u->cuts = NULL;
     u->cut_weights = NULL;
     if (u->raw.hashes) ctm_map_free(&u->raw);
+    if (u->undec.hashes) ctm_map_free(&u->undec);
+    free(u->holdouts);
+    u->holdouts = NULL;
+    ctm_cps_ws_free(u->cps_ws);
+    u->cps_ws = NULL;
 }
 
 /* ---------------------------------------------------------------- helpers shared by both dimensions */
@@ -320,6 +346,98 @@ static int translated(ctm_unit *u, int side, int state, int64_t pos, int64_t rea
     return found;
 }
 
+/* 2D translated cycler. At a record (the head has just grown the box on
+ * `side`, so every cell beyond that edge is blank) in state q at h2, take an
+ * earlier record on the same side in state q at h1, v = h2 - h1, and B the box
+ * of head positions since then. If the cells of B held at h1's time what the
+ * cells of B + v hold now, the stretch from h1 to h2 repeats forever, shifted
+ * by v each time: it reads only B, what lies beyond the edge is blank both
+ * times, and by induction the next stretch finds the same cells again.
+ * `run` is the box of head positions since the latest record. */
+static int translated2(ctm_unit *u, int side, int state, int64_t x, int64_t y, const int64_t run[4]) {
+    enum { W = CTM_REC2_W, H = CTM_REC2_W / 2 };
+    const int k = u->rec2_n % CTM_REC2_RING;
+    const int have = u->rec2_n < CTM_REC2_RING ? u->rec2_n : CTM_REC2_RING;
+    const int64_t lim = u->stride; /* coordinates run over 0 .. stride-1 */
+    int64_t b[4] = {run[0], run[1], run[2], run[3]};
+    int found = 0;
+    for (int i = 1; i <= have && !found; i++) {
+        int j = (k - i + CTM_REC2_RING) % CTM_REC2_RING;
+        if (u->rec2_side[j] == side && u->rec2_state[j] == state) {
+            int64_t x1 = u->rec2_x[j], y1 = u->rec2_y[j], vx = x - x1, vy = y - y1;
+            int fits = b[0] >= x1 - H && b[1] < x1 - H + W && b[2] >= y1 - H && b[3] < y1 - H + W &&
+                       b[0] + vx >= 0 && b[1] + vx < lim && b[2] + vy >= 0 && b[3] + vy < lim;
+            if (fits) {
+                const uint8_t *old = u->rec2_cells[j];
+                int same = 1;
+                for (int64_t cy = b[2]; cy <= b[3] && same; cy++) {
+                    const uint8_t *now = u->tape + cell(u, b[0] + vx, cy + vy);
+                    const uint8_t *was = old + (cy - (y1 - H)) * W + (b[0] - (x1 - H));
+                    same = memcmp(now, was, (size_t)(b[1] - b[0] + 1)) == 0;
+                }
+                found = same;
+            }
+        }
+        const int64_t *rb = u->rec2_box[j];
+        if (rb[0] < b[0]) b[0] = rb[0];
+        if (rb[1] > b[1]) b[1] = rb[1];
+        if (rb[2] < b[2]) b[2] = rb[2];
+        if (rb[3] > b[3]) b[3] = rb[3];
+    }
+    /* log this record when its square lies inside the grid */
+    if (x - H < 0 || x - H + W > lim || y - H < 0 || y - H + W > lim) {
+        u->rec2_n = 0; /* a gap in the ring would break the boxes' chain */
+        return found;
+    }
+    u->rec2_side[k] = (int8_t)side;
+    u->rec2_state[k] = state;
+    u->rec2_x[k] = x;
+    u->rec2_y[k] = y;
+    memcpy(u->rec2_box[k], run, sizeof u->rec2_box[k]);
+    for (int r = 0; r < W; r++)
+        memcpy(u->rec2_cells[k] + r * W, u->tape + cell(u, x - H, y - H + r), W);
+    u->rec2_n++;
+    return found;
+}
+
+/* n-gram CPS on the partial machine: > 0 proven, 0 not, < 0 an error. */
+static int try_cps(ctm_unit *u) {
+    if (!u->cps_ws && !(u->cps_ws = ctm_cps_ws_new())) return CTM_ENOMEM;
+    ctm_machine mc = {u->n, u->m, u->def, u->wr, u->mv, u->nx};
+    return ctm_cps1d(u->cps_ws, &mc, ctm_cps_attempts());
+}
+
+/* An undecided node at the cap: its weight by the size its output has
+ * reached (outputs only grow, so it can never produce a smaller key), and,
+ * when asked for, the node itself for other provers. */
+static int give_up(ctm_unit *u, const config *box, int64_t step, ctm_count weight) {
+    uint32_t size[2] = {(uint32_t)(box->yhi - box->ylo + 1), (uint32_t)(box->xhi - box->xlo + 1)};
+    uint8_t key[8];
+    u->undecided_nodes++;
+    memcpy(key, size, sizeof key); /* little-endian hosts only, as the rest of the core */
+    int rc = ctm_map_add(&u->undec, key, sizeof key, weight);
+    if (rc || !u->keep_holdouts) return rc;
+    const size_t rec = CTM_HOLDOUT_BYTES(u->nent);
+    if (u->n_holdouts == u->holdouts_cap) {
+        size_t ncap = u->holdouts_cap ? u->holdouts_cap * 2 : 64;
+        uint8_t *p = realloc(u->holdouts, ncap * rec);
+        if (!p) return CTM_ENOMEM;
+        u->holdouts = p;
+        u->holdouts_cap = ncap;
+    }
+    uint8_t *r = u->holdouts + u->n_holdouts++ * rec;
+    const int ne = u->nent;
+    memcpy(r, u->def, (size_t)ne);
+    memcpy(r + ne, u->wr, (size_t)ne);
+    memcpy(r + 2 * ne, u->mv, (size_t)ne);
+    memcpy(r + 3 * ne, u->nx, (size_t)ne);
+    r += 4 * ne;
+    for (int i = 0; i < 16; i++) r[i] = (uint8_t)(weight >> (8 * i));
+    int64_t tail[3] = {step, (int64_t)size[0], (int64_t)size[1]};
+    memcpy(r + 16, tail, sizeof tail);
+    return CTM_OK;
+}
+
 /* A sampled machine halts: tally one run under its full symmetry class (every
  * image of a uniform sample is itself a uniform sample), weight 1. */
 static int sample_halt(ctm_unit *u, const config *c, int e) {
@@ -386,6 +504,7 @@ int ctm_sample(ctm_unit *u, uint64_t count) {
 }
 
 int ctm_unit_run(ctm_unit *u) {
+    if (u->pow_overflow) return CTM_EOVERFLOW;
     config root = {0, 0, u->origin_x, u->origin_y, u->origin_x, u->origin_x,
                    u->origin_y, u->origin_y, 0, 1};
     root.head = cell(u, root.x, root.y);
@@ -397,7 +516,11 @@ int ctm_unit_run(ctm_unit *u) {
 
 int ctm_run1d(int n, int m, const uint8_t *wr, const int8_t *mv, const int16_t *nx,
               uint8_t blank, uint64_t max_steps, ctm_run_result *res) {
-    if (n < 1 || m < 2 || blank >= m) return CTM_EINVAL;
+    if (n < 1 || m < 2 || m > 256 || blank >= m || n * m > CTM_MAX_ENTRIES) return CTM_EINVAL;
+    for (int e = 0; e < n * m; e++) {
+        if (wr[e] >= m || nx[e] >= n || nx[e] < CTM_NX_UNDEF) return CTM_EINVAL;
+        if (nx[e] >= 0 && mv[e] != 1 && mv[e] != -1) return CTM_EINVAL;
+    }
     size_t len = 1 << 12;
     uint8_t *tape = malloc(len);
     if (!tape) return CTM_ENOMEM;

@@ -29,11 +29,34 @@
 #define CTM_DEC_ESCAPE 2u  /* escapee on fresh blank tape */
 #define CTM_DEC_CYCLE 4u   /* repeated configuration */
 #define CTM_DEC_SHIFT 8u   /* translated cycler: a record configuration repeats shifted */
+#define CTM_DEC_CPS 16u    /* n-gram closed position set, after the cap (1D) */
+#define CTM_DEC_COUNT 5    /* proof kinds counted in ctm_unit.proven, one per bit above */
 
 #define CTM_REC_RING 32    /* records kept per side for the translated-cycler check */
 #define CTM_REC_WINDOW 64  /* cells kept behind each record */
+#define CTM_REC2_RING 32   /* 2D: records kept, all sides together */
+#define CTM_REC2_W 16      /* 2D: the square of cells kept around each record */
 
 typedef unsigned __int128 ctm_count;
+
+/* One partial 1D machine for the provers: entry e = state*m + symbol; def[e]
+ * 1 a MOVE (wr, mv 0 = R / 1 = L, nx), anything else may halt. */
+typedef struct {
+    int n, m;
+    const int8_t *def;
+    const uint8_t *wr;
+    const int8_t *mv;
+    const uint8_t *nx;
+} ctm_machine;
+
+/* n-gram CPS over a fixed schedule of window lengths and history depths:
+ * the 1-based attempt that proved non-halting, 0 if none did, or an error. */
+typedef struct ctm_cps_ws ctm_cps_ws; /* reusable CPS workspace; NULL: one per call */
+ctm_cps_ws *ctm_cps_ws_new(void);
+void ctm_cps_ws_free(ctm_cps_ws *ws);
+int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts);
+int ctm_cps_attempts(void);
+int ctm_cps_set_plan(const int *plan, int count); /* {n, k, log2 limit} triples */
 
 const char *ctm_strerror(int code);
 
@@ -67,9 +90,17 @@ typedef struct {
     /* outputs: weights count machines on blank 0, mirror images included */
     ctm_map raw;         /* key = mirrored flag byte + output symbols */
     ctm_count halting, non_halting, undecided;
+    ctm_count proven[CTM_DEC_COUNT]; /* non-halting weight by the proof that gave it */
+    ctm_map undec;       /* undecided weight by size at the cap: key uint32 rows, uint32 cols */
+    int keep_holdouts;   /* != 0: list every undecided node in holdouts */
+    uint8_t *holdouts;   /* records of CTM_HOLDOUT_BYTES(nent) bytes */
+    size_t n_holdouts, holdouts_cap;
+    ctm_cps_ws *cps_ws;  /* owned: the CPS workspace, made at the first use */
+    int64_t cps_at;      /* 1D: try CPS once when a segment reaches this step (0: only at the cap) */
     ctm_count *hist_steps; /* [cap + 1], index = halting step */
     ctm_count *hist_len;   /* [cap + 2], index = output length */
     uint64_t halting_nodes;
+    uint64_t undecided_nodes; /* tree nodes left undecided at the cap */
     int64_t longest_run;
     int64_t most_nonblank;
     uint64_t steps;      /* simulated steps, for speed figures */
@@ -80,6 +111,7 @@ typedef struct {
 
     /* private state */
     int nent, used, ndef;
+    int pow_overflow;            /* opts^nent passes 128 bits: sampling only */
     int sym;                     /* symmetry class of the path: 0 none yet, 1, 2 (2D) */
     ctm_count factor[3];         /* machines per class member: 1, 2 (1D) or 1, 4, 8 (2D) */
     int8_t def[CTM_MAX_ENTRIES];
@@ -104,7 +136,19 @@ typedef struct {
     int64_t rec_pos[2][CTM_REC_RING];
     int64_t rec_reach[2][CTM_REC_RING]; /* farthest back the head went since the record before */
     uint8_t rec_cells[2][CTM_REC_RING][CTM_REC_WINDOW];
+    /* 2D translated-cycler records: one ring over the four sides, each with the
+     * box of head positions since the record before and the cells around it */
+    int rec2_n;
+    int8_t rec2_side[CTM_REC2_RING];
+    int rec2_state[CTM_REC2_RING];
+    int64_t rec2_x[CTM_REC2_RING], rec2_y[CTM_REC2_RING];
+    int64_t rec2_box[CTM_REC2_RING][4]; /* xlo, xhi, ylo, yhi */
+    uint8_t rec2_cells[CTM_REC2_RING][CTM_REC2_W * CTM_REC2_W];
 } ctm_unit;
+
+/* A holdout record: def, wr, mv, nx (nent bytes each), the weight (16 bytes
+ * LE), the step reached, rows and cols of the box (int64 LE each). */
+#define CTM_HOLDOUT_BYTES(nent) (4 * (size_t)(nent) + 16 + 3 * 8)
 
 int ctm_unit_init(ctm_unit *u);   /* after the inputs are set */
 int ctm_unit_run(ctm_unit *u);

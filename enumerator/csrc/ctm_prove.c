@@ -1,0 +1,294 @@
+/* Proofs of non-halting that run after the cap, on undecided nodes only, from
+ * the blank tape. A proof must hold for every completion of the partial
+ * machine, so an undefined entry counts as a possible halt, as does a HALT.
+ *
+ * n-gram closed position set (CPS), 1D. An abstract configuration is the
+ * state, the n cells on each side of the head and the head cell; beyond the
+ * windows only the sets L and R of n-grams that may occur on the left and on
+ * the right half-tape are kept. Starting from the blank tape, the reachable
+ * abstract configurations and the two sets are grown to a fixed point. Every
+ * real configuration is covered by one of them (by induction on the steps), so
+ * if none of them reads an entry that may halt, the machine never halts.
+ *
+ * History: a cell may also carry the tags of the last k transitions that wrote
+ * it. The transitions read only the symbol, so the augmented machine runs in
+ * lockstep with the plain one and halts exactly when it does; the richer cells
+ * let the fixed point separate tape regions that plain n-grams merge. */
+#include "ctm_core.h"
+
+#include <stdlib.h>
+#include <string.h>
+
+#define NOT_PROVEN 0
+#define PROVEN 1
+
+/* A set of fixed-length words of uint16 cells, kept in insertion order. The
+ * slots carry a generation stamp, so a reused set is cleared in O(1). */
+typedef struct {
+    int len;
+    uint16_t *keys;
+    int32_t *slots;
+    uint32_t *gens;
+    uint32_t gen;
+    size_t count, cap, nslots, limit;
+} wset;
+
+struct ctm_cps_ws {
+    wset sets[5];           /* L, R, configurations, the two waiting keys */
+    int32_t *first[2], *next; /* per waiting key its first configuration; per configuration the next */
+    size_t links_cap;
+};
+
+static int wset_init(wset *s) {
+    s->cap = 64 * 34;  /* uint16 cells: 64 keys of the longest length */
+    s->nslots = 256;
+    s->gen = 0;
+    s->keys = malloc(s->cap * sizeof *s->keys);
+    s->slots = malloc(s->nslots * sizeof *s->slots);
+    s->gens = calloc(s->nslots, sizeof *s->gens);
+    return s->keys && s->slots && s->gens ? CTM_OK : CTM_ENOMEM;
+}
+
+static void wset_free(wset *s) {
+    free(s->keys);
+    free(s->slots);
+    free(s->gens);
+    s->keys = NULL;
+    s->slots = NULL;
+    s->gens = NULL;
+}
+
+static void wset_reset(wset *s, int len, size_t limit) {
+    s->len = len;
+    s->limit = limit;
+    s->count = 0;
+    if (++s->gen == 0) { /* wrapped: clear the stamps once */
+        memset(s->gens, 0, s->nslots * sizeof *s->gens);
+        s->gen = 1;
+    }
+}
+
+static uint64_t whash(const uint16_t *w, int len) {
+    uint64_t h = 0x9e3779b97f4a7c15ull;
+    for (int i = 0; i < len; i++) h = (h ^ w[i]) * 0x100000001b3ull;
+    h ^= h >> 31;
+    return h * 0xbf58476d1ce4e5b9ull;
+}
+
+static int wset_rehash(wset *s, size_t ns) {
+    int32_t *sl = malloc(ns * sizeof *sl);
+    uint32_t *gn = calloc(ns, sizeof *gn);
+    if (!sl || !gn) { free(sl); free(gn); return CTM_ENOMEM; }
+    for (size_t i = 0; i < s->count; i++) {
+        size_t q = (size_t)(whash(s->keys + i * (size_t)s->len, s->len) >> 20) & (ns - 1);
+        while (gn[q] == s->gen) q = (q + 1) & (ns - 1);
+        sl[q] = (int32_t)i;
+        gn[q] = s->gen;
+    }
+    free(s->slots);
+    free(s->gens);
+    s->slots = sl;
+    s->gens = gn;
+    s->nslots = ns;
+    return CTM_OK;
+}
+
+/* The index of word w in the set, or -1. */
+static int32_t wset_find(const wset *s, const uint16_t *w) {
+    size_t mask = s->nslots - 1, j = (size_t)(whash(w, s->len) >> 20) & mask;
+    const size_t bytes = (size_t)s->len * sizeof *w;
+    for (; s->gens[j] == s->gen; j = (j + 1) & mask)
+        if (!memcmp(s->keys + (size_t)s->slots[j] * (size_t)s->len, w, bytes)) return s->slots[j];
+    return -1;
+}
+
+/* 1: inserted, 0: present, 2: the set reached its limit, <0: error */
+static int wset_add(wset *s, const uint16_t *w) {
+    size_t mask = s->nslots - 1, j = (size_t)(whash(w, s->len) >> 20) & mask;
+    const size_t bytes = (size_t)s->len * sizeof *w;
+    for (; s->gens[j] == s->gen; j = (j + 1) & mask)
+        if (!memcmp(s->keys + (size_t)s->slots[j] * (size_t)s->len, w, bytes)) return 0;
+    if (s->count >= s->limit) return 2;
+    if ((s->count + 1) * (size_t)s->len > s->cap) {
+        uint16_t *k = realloc(s->keys, s->cap * 2 * sizeof *k);
+        if (!k) return CTM_ENOMEM;
+        s->keys = k;
+        s->cap *= 2;
+    }
+    memcpy(s->keys + s->count * (size_t)s->len, w, bytes);
+    s->slots[j] = (int32_t)s->count++;
+    s->gens[j] = s->gen;
+    if (s->count * 2 > s->nslots) return wset_rehash(s, s->nslots * 2) ? CTM_ENOMEM : 1;
+    return 1;
+}
+
+ctm_cps_ws *ctm_cps_ws_new(void) {
+    ctm_cps_ws *ws = calloc(1, sizeof *ws);
+    if (!ws) return NULL;
+    for (int i = 0; i < 5; i++)
+        if (wset_init(&ws->sets[i])) { ctm_cps_ws_free(ws); return NULL; }
+    return ws;
+}
+
+void ctm_cps_ws_free(ctm_cps_ws *ws) {
+    if (!ws) return;
+    for (int i = 0; i < 5; i++) wset_free(&ws->sets[i]);
+    free(ws->first[0]);
+    free(ws->first[1]);
+    free(ws->next);
+    free(ws);
+}
+
+/* The abstract step of configuration cfg: the entry, what it writes (with its
+ * history) and where it goes. */
+typedef struct {
+    int n, m, nent;
+    uint32_t period;
+    const ctm_machine *mc;
+} cps_ctx;
+
+static int step_of(const cps_ctx *x, const uint16_t *cfg, uint16_t *written, int *ns, int *right) {
+    const int n = x->n, m = x->m;
+    const uint16_t head = cfg[1 + n];
+    const int e = cfg[0] * m + head % m;
+    if (x->mc->def[e] != 1) return 0; /* an entry that may halt is reachable */
+    const uint32_t hist = ((uint32_t)(head / m) * (uint32_t)(x->nent + 1) + (uint32_t)(e + 1)) % x->period;
+    *written = (uint16_t)(x->mc->wr[e] + (uint32_t)m * hist);
+    *ns = x->mc->nx[e];
+    *right = x->mc->mv[e] == 0;
+    return 1;
+}
+
+/* The successor of cfg when the cell pulled into its window comes from n-gram g. */
+static void successor(const cps_ctx *x, const uint16_t *cfg, const uint16_t *g, uint16_t *out) {
+    const int n = x->n;
+    uint16_t written = 0;
+    int ns = 0, right = 0;
+    step_of(x, cfg, &written, &ns, &right); /* defined: cfg was expanded before it waited */
+    const uint16_t *lw = cfg + 1, *rw = cfg + 2 + n;
+    out[0] = (uint16_t)ns;
+    if (right) { /* left window gains the written cell; the head reads rw[0]; g[n-1] enters on the right */
+        memcpy(out + 1, lw + 1, (size_t)(n - 1) * sizeof *out);
+        out[n] = written;
+        out[1 + n] = rw[0];
+        memcpy(out + 2 + n, rw + 1, (size_t)(n - 1) * sizeof *out);
+        out[1 + 2 * n] = g[n - 1];
+    } else {       /* mirror image: g[0] enters on the left */
+        out[1] = g[0];
+        memcpy(out + 2, lw, (size_t)(n - 1) * sizeof *out);
+        out[1 + n] = lw[n - 1];
+        out[2 + n] = written;
+        memcpy(out + 3 + n, rw, (size_t)(n - 1) * sizeof *out);
+    }
+}
+
+/* One CPS attempt with windows of n cells and k history tags per cell. A worklist
+ * over the configurations; each one waits, keyed by the n-1 cells an n-gram must
+ * match, for n-grams that arrive after it, so nothing is ever rescanned. */
+static int cps_once(ctm_cps_ws *ws, const ctm_machine *mc, int n, int k, size_t limit) {
+    cps_ctx x = {n, mc->m, mc->n * mc->m, 1, mc};
+    for (int i = 0; i < k; i++) x.period *= (uint32_t)(x.nent + 1);
+    if ((uint64_t)x.period * (uint64_t)x.m > 65535u) return NOT_PROVEN;
+    const int clen = 2 * n + 2; /* state, left window, head cell, right window */
+    wset *L = &ws->sets[0], *R = &ws->sets[1], *C = &ws->sets[2], *K[2] = {&ws->sets[3], &ws->sets[4]};
+    wset_reset(L, n, limit);
+    wset_reset(R, n, limit);
+    wset_reset(C, clen, limit);
+    wset_reset(K[0], n - 1, limit); /* right movers wait on rw[1..n-1], a prefix of R's n-grams */
+    wset_reset(K[1], n - 1, limit); /* left movers wait on lw[0..n-2], a suffix of L's n-grams */
+    if (ws->links_cap < limit) {
+        int32_t *a = realloc(ws->first[0], limit * sizeof *a), *b = realloc(ws->first[1], limit * sizeof *b);
+        if (a) ws->first[0] = a;
+        if (b) ws->first[1] = b;
+        int32_t *c = realloc(ws->next, limit * sizeof *c);
+        if (c) ws->next = c;
+        if (!a || !b || !c) return CTM_ENOMEM;
+        ws->links_cap = limit;
+    }
+    uint16_t cfg[2 * 16 + 2], nxt[2 * 16 + 2], gram[16];
+    memset(cfg, 0, sizeof cfg);
+    memset(gram, 0, sizeof gram);
+    int rc;
+    if ((rc = wset_add(L, gram)) < 0 || (rc = wset_add(R, gram)) < 0 || (rc = wset_add(C, cfg)) < 0) return rc;
+    for (size_t i = 0; i < C->count; i++) {
+        memcpy(cfg, C->keys + i * (size_t)clen, (size_t)clen * sizeof *cfg);
+        uint16_t written;
+        int ns, right;
+        if (!step_of(&x, cfg, &written, &ns, &right)) return NOT_PROVEN;
+        const uint16_t *lw = cfg + 1, *rw = cfg + 2 + n;
+        /* the n-gram the move leaves behind: right, the new left window; left, the new right one */
+        wset *grown = right ? L : R, *pull = right ? R : L;
+        if (right) { memcpy(gram, lw + 1, (size_t)(n - 1) * sizeof *gram); gram[n - 1] = written; }
+        else { gram[0] = written; memcpy(gram + 1, rw, (size_t)(n - 1) * sizeof *gram); }
+        int added = wset_add(grown, gram);
+        if (added < 0) return added;
+        if (added == 2) return NOT_PROVEN;
+        if (added == 1) { /* wake the movers the other way that wait for this n-gram */
+            wset *wk = K[right ? 1 : 0];
+            int32_t key = wset_find(wk, right ? gram + 1 : gram);
+            for (int32_t j = key >= 0 ? ws->first[right ? 1 : 0][key] : -1; j >= 0; j = ws->next[j]) {
+                successor(&x, C->keys + (size_t)j * (size_t)clen, gram, nxt);
+                if ((rc = wset_add(C, nxt)) < 0) return rc;
+                if (rc == 2) return NOT_PROVEN;
+            }
+        }
+        /* this configuration waits for the n-grams that may enter its window, and takes those known */
+        const uint16_t *want = right ? rw + 1 : lw;
+        const int side = right ? 0 : 1;
+        size_t before = K[side]->count;
+        if ((rc = wset_add(K[side], want)) < 0) return rc;
+        if (rc == 2) return NOT_PROVEN;
+        int32_t key = wset_find(K[side], want);
+        if (K[side]->count > before) ws->first[side][key] = -1;
+        ws->next[i] = ws->first[side][key];
+        ws->first[side][key] = (int32_t)i;
+        for (size_t g = 0; g < pull->count; g++) {
+            const uint16_t *cand = pull->keys + g * (size_t)n;
+            if (memcmp(right ? cand : cand + 1, want, (size_t)(n - 1) * sizeof *cand)) continue;
+            successor(&x, cfg, cand, nxt);
+            if ((rc = wset_add(C, nxt)) < 0) return rc;
+            if (rc == 2) return NOT_PROVEN;
+        }
+    }
+    return PROVEN;
+}
+
+/* The CPS schedule: cheap plain windows first, then short windows with history,
+ * ordered by what each proves per unit of work on the 1D (5,2) holdouts.
+ * {window n, history k, log2 of the abstract configurations allowed} */
+#define CPS_PLAN_MAX 32
+static int cps_plan[CPS_PLAN_MAX][3] = {
+    {1, 0, 9}, {2, 0, 10}, {3, 0, 11}, {2, 1, 11}, {2, 2, 11}, {2, 3, 12}, {3, 2, 12}, {2, 4, 12},
+};
+static int cps_plan_len = 8;
+
+/* Replace the schedule (for measurements): every entry needs 1 <= n <= 16, k >= 0, 4 <= log2 <= 20. */
+int ctm_cps_set_plan(const int *plan, int count) {
+    if (count < 1 || count > CPS_PLAN_MAX) return CTM_EINVAL;
+    for (int i = 0; i < count; i++)
+        if (plan[3 * i] < 1 || plan[3 * i] > 16 || plan[3 * i + 1] < 0 || plan[3 * i + 2] < 4 || plan[3 * i + 2] > 20)
+            return CTM_EINVAL;
+    for (int i = 0; i < count; i++)
+        for (int j = 0; j < 3; j++) cps_plan[i][j] = plan[3 * i + j];
+    cps_plan_len = count;
+    return CTM_OK;
+}
+
+int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts) {
+    const int np = cps_plan_len;
+    if (mc->n < 1 || mc->m < 2 || mc->n * mc->m > CTM_MAX_ENTRIES) return CTM_EINVAL;
+    for (int e = 0; e < mc->n * mc->m; e++)
+        if (mc->def[e] == 1 && (mc->wr[e] >= mc->m || mc->nx[e] >= mc->n || mc->mv[e] > 1)) return CTM_EINVAL;
+    ctm_cps_ws *own = NULL;
+    if (!ws && !(ws = own = ctm_cps_ws_new())) return CTM_ENOMEM;
+    int found = 0;
+    for (int i = 0; i < np && i < max_attempts && !found; i++) {
+        int rc = cps_once(ws, mc, cps_plan[i][0], cps_plan[i][1], (size_t)1 << cps_plan[i][2]);
+        if (rc < 0) { found = rc; break; }
+        if (rc == PROVEN) found = i + 1;
+    }
+    ctm_cps_ws_free(own);
+    return found;
+}
+
+int ctm_cps_attempts(void) { return cps_plan_len; }

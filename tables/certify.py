@@ -1,0 +1,113 @@
+"""Certified bounds of an exhaustive table (format 1.3, header field `certificate`).
+
+A run's output is the span it visited (1D) or its bounding box (2D), and that
+only grows. So an undecided run that had reached size w at the cap can never
+produce a key smaller than w: the true count of a key lies in [c, c + U_k],
+where U_k is the undecided weight whose size still fits the key's shape, and
+the true halting total in [H, H + U]. Tables written before 1.3 fall back to
+U_k = U. At a cap at or past a proven busy-beaver bound, U = 0: exact."""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..errors import InconsistentTableError
+
+MAX_SIZES = 1 << 20  # size records in one header: far above any cap's spans
+
+
+@dataclass
+class Certificate:
+    proofs: dict                  # decider name (or "step-bound") -> non-halting weight
+    by_size: list                 # (rows, cols, weight) of the undecided weight at the cap
+    nodes: int                    # undecided tree nodes
+    step_bound: dict | None       # {"steps": S, "source": ...} when the bound was reached
+    _reach: dict = field(default_factory=dict, repr=False)
+
+    def reach(self, shape: tuple) -> int:
+        """Undecided weight (machines on one blank) that could still produce a key of this
+        shape: 1D a span <= the length; 2D a box that fits the shape, either way round (the
+        node's weight holds its rotated images too)."""
+        shape = tuple(shape)
+        if shape not in self._reach:
+            if len(shape) == 1:
+                self._reach[shape] = sum(w for r, c, w in self.by_size if c <= shape[0])
+            else:
+                kr, kc = shape
+                self._reach[shape] = sum(w for r, c, w in self.by_size
+                                         if (r <= kr and c <= kc) or (c <= kr and r <= kc))
+        return self._reach[shape]
+
+
+def header_field(tally) -> dict | None:
+    """The header's `certificate` for a tally that recorded its proofs."""
+    if tally.proofs is None or tally.undecided_by_size is None:
+        return None
+    out = {
+        "proofs": {name: str(w) for name, w in tally.proofs.items()},
+        "undecided_by_size": [[r, c, str(w)] for (r, c), w in sorted(tally.undecided_by_size.items())],
+        "undecided_nodes": int(tally.undecided_nodes),
+        "step_bound": None,
+    }
+    if tally.step_bound is not None:
+        steps, source = tally.step_bound
+        out["step_bound"] = {"steps": steps, "source": source}
+    return out
+
+
+def _whole(v, what: str) -> int:
+    if isinstance(v, bool) or not isinstance(v, (int, str)) or (isinstance(v, str) and not v.isdigit()):
+        raise InconsistentTableError(f"the certificate's {what} is not a whole number")
+    v = int(v)
+    if v < 0:
+        raise InconsistentTableError(f"the certificate's {what} is negative")
+    return v
+
+
+def parse(header: dict, non_halting: int, undecided: int, cap: int) -> Certificate | None:
+    """The certificate of a loaded header, checked against the totals; None when absent."""
+    cert = header.get("certificate")
+    if cert is None:
+        return None
+    if not isinstance(cert, dict):
+        raise InconsistentTableError("the header's certificate is not a map")
+    proofs = cert.get("proofs")
+    sizes = cert.get("undecided_by_size")
+    if not isinstance(proofs, dict) or not isinstance(sizes, list) or len(sizes) > MAX_SIZES:
+        raise InconsistentTableError("the certificate's proofs or undecided_by_size are malformed")
+    parsed_proofs = {str(k): _whole(v, f"proof weight of {k!r}") for k, v in proofs.items()}
+    by_size = []
+    for entry in sizes:
+        if not isinstance(entry, list) or len(entry) != 3:
+            raise InconsistentTableError("an undecided_by_size entry is not [rows, cols, weight]")
+        r, c, w = _whole(entry[0], "rows"), _whole(entry[1], "cols"), _whole(entry[2], "weight")
+        if not (1 <= r <= 2 * cap + 1 and 1 <= c <= 2 * cap + 1):
+            raise InconsistentTableError(f"an undecided size {r}x{c} cannot arise under cap {cap}")
+        by_size.append((r, c, w))
+    if sum(parsed_proofs.values()) != non_halting:
+        raise InconsistentTableError("the certificate's proofs do not sum to the non-halting total")
+    if sum(w for _, _, w in by_size) != undecided:
+        raise InconsistentTableError("the certificate's undecided weight by size does not sum to the undecided total")
+    bound = cert.get("step_bound")
+    if bound is not None:
+        if not isinstance(bound, dict) or not isinstance(bound.get("source"), str):
+            raise InconsistentTableError("the certificate's step_bound is malformed")
+        if _whole(bound.get("steps"), "step bound") > cap or undecided:
+            raise InconsistentTableError("the certificate claims a step bound that the cap or the "
+                                         "undecided total contradicts")
+    nodes = _whole(cert.get("undecided_nodes", 0), "undecided_nodes")
+    return Certificate(parsed_proofs, by_size, nodes, bound)
+
+
+def bounds(c, u_key: int, u_total: int, total: int):
+    """Certified CTM bounds in bits (numpy-friendly): the true probability lies in
+    [c / (H + U), (c + U_k) / (H + U_k)], H the halting runs, U all undecided runs,
+    U_k those that can still reach the key."""
+    c = np.asarray(c, dtype=np.float64)
+    u_key = np.asarray(u_key, dtype=np.float64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        low = np.where(c + u_key > 0, np.log2(total + u_key) - np.log2(c + u_key), np.inf)
+        high = math.log2(total + u_total) - np.log2(c) if total + u_total else np.full_like(c, np.inf)
+    return low, high
