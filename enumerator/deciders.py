@@ -14,3 +14,6 @@ DECIDERS = {
 }
 ALL_DECIDERS = tuple(DECIDERS)
 STEP_BOUND = "step-bound"    # not a decider: the proven busy-beaver bound (enumerator/bounds.py)
+# Exhaustive builds run the CPS only from this cap on: it is tried once per node, at step 128
+# (enumerator/_core.pyx CPS_AT) or at the cap, and shorter caps leave mostly runs cut short.
+CPS_MIN_CAP = 128

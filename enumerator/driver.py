@@ -17,7 +17,7 @@ from .tally import Partial, Tally, images_per_sample, relative_sample_errors, sa
 from .units import Plan, default_depth, make_plan, unit_weight_ok
 
 from .bounds import bound_reached
-from .deciders import ALL_DECIDERS, DECIDERS
+from .deciders import ALL_DECIDERS, CPS_MIN_CAP, DECIDERS
 
 # Cost model of the estimate, single-core seconds, fitted to builds on this project's machine:
 # 1D to the (4,2) and (5,2) figures of README.md (Performance); 2D to (3,2) and (2,3) at caps
@@ -44,9 +44,10 @@ def decider_bits(names) -> int:
 
 def search_bits(space: Space, cap: int, deciders) -> int:
     """The decider bits an exhaustive search runs with. At a cap at or past a proven busy-beaver
-    bound every undecided node is proven by the bound, so the CPS would only cost time."""
+    bound every undecided node is proven by the bound, and below CPS_MIN_CAP most undecided runs
+    are only cut short (they branch soon after): in both cases the CPS would only cost time."""
     bits = decider_bits(deciders)
-    if bound_reached(space, cap) is not None:
+    if bound_reached(space, cap) is not None or cap < CPS_MIN_CAP:
         bits &= ~DECIDERS["ngram-cps"]
     return bits
 

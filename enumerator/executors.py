@@ -33,11 +33,17 @@ def stream(tasks, workers: int = 1, scheduler: str | None = None, fn=run_task):
 
 class Runner:
     """One place to run batches of tasks: this process, a local process pool or a Dask
-    cluster, kept open across batches (a sampled build runs in rounds)."""
+    cluster, kept open across batches (a sampled build runs in rounds).
+
+    A pool's workers die with the build: on SIGKILL by PR_SET_PDEATHSIG (Linux), on SIGTERM by a
+    handler that kills them, which breaks the pool, so the build unwinds through its normal exit
+    path (spool kept) and ends with status 128 + SIGTERM. The handler raises nothing itself: an
+    exception at an arbitrary point could leave a lock of the pool held and hang the exit."""
 
     def __init__(self, workers: int = 1, scheduler: str | None = None):
         self.workers, self.scheduler = workers, scheduler
-        self.pool = self.client = self._sigterm = None
+        self.pool = self.client = None
+        self._previous = self._signalled = None
 
     def __enter__(self):
         if self.scheduler:
@@ -47,22 +53,43 @@ class Runner:
 
             self.pool = ProcessPoolExecutor(max_workers=self.workers, initializer=_worker_init,
                                             initargs=(os.getpid(),))
-            self._sigterm = _on_sigterm_exit()
+            if threading.current_thread() is threading.main_thread() and \
+                    signal.getsignal(signal.SIGTERM) is signal.SIG_DFL:
+                self._previous = signal.signal(signal.SIGTERM, self._on_sigterm)
         return self
+
+    def _kill_workers(self) -> None:
+        try:
+            procs = list((getattr(self.pool, "_processes", None) or {}).values())
+        except RuntimeError:  # changed size under us: the manager thread is already at it
+            procs = []
+        for proc in procs:
+            try:
+                os.kill(proc.pid, signal.SIGKILL)
+            except (OSError, TypeError):
+                pass
+
+    def _on_sigterm(self, signum, frame):
+        self._signalled = signum
+        self._kill_workers()
+
+    def _check(self) -> None:
+        if self._signalled:
+            raise SystemExit(128 + self._signalled)
 
     def __exit__(self, kind, *exc):
         if self.pool is not None:
             manager = getattr(self.pool, "_executor_manager_thread", None)
             if kind is not None:  # killed, interrupted or failed: stop the workers now, not after their units
-                for proc in list((getattr(self.pool, "_processes", None) or {}).values()):
-                    proc.terminate()
+                self._kill_workers()
+                if manager is not None:
+                    # the manager thread sees the dead workers, fails every future and closes
+                    # down; cancelling or exiting meanwhile races it into tracebacks (CPython 3.11)
+                    manager.join(timeout=5)
             self.pool.shutdown(wait=kind is None, cancel_futures=True)
-            if kind is not None and manager is not None:
-                # let the pool's manager thread see the dead workers and close down, or Python's
-                # exit hook races it into an "Exception ignored" traceback (CPython < 3.12)
-                manager.join(timeout=5)
-            if self._sigterm is not None:
-                signal.signal(signal.SIGTERM, self._sigterm)
+            if self._previous is not None:
+                signal.signal(signal.SIGTERM, self._previous)
+            self._check()
         if self.client is not None:
             self.client.close()
 
@@ -76,7 +103,10 @@ class Runner:
         elif self.pool is not None:
             from concurrent.futures import as_completed
 
-            futures = [self.pool.submit(fn, t) for t in tasks]
+            futures = []
+            for t in tasks:
+                self._check()
+                futures.append(self.pool.submit(fn, t))
             done = as_completed(futures)
         else:
             for task in tasks:
@@ -84,10 +114,12 @@ class Runner:
             return
         try:
             for f in done:
+                self._check()
                 yield f.result()
         finally:
-            for f in futures:
-                f.cancel()
+            if not self._signalled:  # else the pool's manager fails them, and must not be raced
+                for f in futures:
+                    f.cancel()
 
 
 def _worker_init(parent: int) -> None:
@@ -104,20 +136,6 @@ def _worker_init(parent: int) -> None:
             pass
     if os.getppid() != parent:  # the parent died before the prctl took hold
         os._exit(1)
-
-
-def _on_sigterm_exit():
-    """Make SIGTERM end a parallel build through the normal exit path, so Runner.__exit__ stops
-    the workers; returns the handler to restore, or None if another handler is in place."""
-    if threading.current_thread() is not threading.main_thread():
-        return None
-    if signal.getsignal(signal.SIGTERM) is not signal.SIG_DFL:
-        return None
-
-    def terminated(signum, frame):
-        raise SystemExit(128 + signum)
-
-    return signal.signal(signal.SIGTERM, terminated)
 
 
 def _dask_client(address: str):

@@ -7,7 +7,7 @@ import pytest
 from ctmtab.enumerator import Space, build
 from ctmtab.enumerator import holdouts as ho
 from ctmtab.enumerator.bounds import STEP_BOUNDS, bound_reached
-from ctmtab.enumerator import _core
+from ctmtab.enumerator.native import core as _core
 from ctmtab.errors import InconsistentTableError
 from ctmtab.tables import Table
 
@@ -122,10 +122,20 @@ def test_per_size_bounds_hold_against_a_longer_run(space, cap, truth):
         assert 0 <= extra <= blanks * room, shape
 
 
+@pytest.mark.parametrize("n,m,cap,truth", [(4, 2, 20, 107), (4, 2, 50, 107), (2, 3, 12, 38)])
+def test_cps_in_the_search_never_claims_a_late_halt(n, m, cap, truth):
+    """The whole tree in one call, the CPS tried at the cap on every undecided node: the extra
+    halting weight up to S(n, m) (S(4) = 107, Brady 1983; S(2,3) = 38, Lafitte & Papazian 2007)
+    must fit in what stayed undecided. A CPS proof of a node that halts later breaks this."""
+    short = _core.run_unit(1, n, m, cap, 31, (), -1, False, 0)
+    plain = _core.run_unit(1, n, m, cap, 15, (), -1, False, 0)
+    long = _core.run_unit(1, n, m, truth, 15, (), -1, False, 0)
+    assert short["proven"][4] > 0 and short["halting"] == plain["halting"]
+    assert long["halting"] - short["halting"] <= short["undecided"]
+    assert short["undecided"] + short["proven"][4] == plain["undecided"]
+
+
 def test_decided_weight_never_halts_later_1d_42():
-    """The CPS proves nodes at a small cap; none of them may halt by S(4) = 107: with and without
-    the CPS the halting weight at 107 is the same, and the CPS-proven nodes at cap 20 are all
-    among the nodes the cap-107 run also never sees halt (the counts at 107 do not change)."""
     with_cps = build(Space(1, 4, 2), 107, budget_hours=None)
     without = build(Space(1, 4, 2), 107, deciders=ALL_BUT_CPS, budget_hours=None)
     assert with_cps.groups == without.groups and with_cps.halting_nodes == 249_693  # arXiv:2509.12337
@@ -183,9 +193,11 @@ def test_small_keys_get_tight_intervals_and_big_ones_stay_honest():
     assert t.certificate is not None and t.undecided > 0
     low, high = t.interval("0110")
     flat_low = np.log2(t.total + t.undecided_runs) - np.log2(t.count("0110") + t.undecided_runs)
-    assert high - low < 1e-3 < high - flat_low  # the per-size bound is far tighter than the total
+    assert high - low < 0.05 < high - flat_low  # the per-size bound is far tighter than the total
     widths = {w["shape"]: w["widest"] for w in t.interval_widths()}
-    assert widths["4"] < 1e-3 and widths["12"] > 1
+    assert widths["4"] < 0.05 and widths["12"] > 1
+    sizes = sorted(widths, key=int)
+    assert all(widths[a] <= widths[b] + 1e-12 for a, b in zip(sizes, sizes[1:]))  # U_k grows with k
     out = t.lookup(np.array([[0, 1, 1, 0]]))
     assert out["ctm_low"][0] == pytest.approx(low) and out["ctm_high"][0] == pytest.approx(high)
 

@@ -36,9 +36,10 @@ def test_info_json_has_the_totals(built):
 def test_export_csv(built):
     r = ctm("export", built, "--format", "csv")
     lines = r.stdout.splitlines()
-    assert lines[0] == "key,count"
-    rows = dict(line.split(",") for line in lines[1:])
+    assert lines[0] == "key,count,ctm,ctm_low,ctm_high"
+    rows = {line.split(",")[0]: line.split(",")[1:] for line in lines[1:]}
     assert len(rows) == 128 and rows["0"] == rows["1"]
+    assert all(float(lo) <= float(c) <= float(hi) for _, c, lo, hi in rows.values())
 
 
 def test_export_json_and_lookup_agree(built, tmp_path):

@@ -287,14 +287,14 @@ def test_malformed_streams_are_refused(edit):
         loads(with_header(data, edit))
 
 
-def test_bad_sample_requests():
+def test_bad_sample_requests(tmp_path):
     with pytest.raises(SpaceError, match="positive"):
         sample(Space(1, 3, 2), 21, 0)
-    r = cli("build", "--sample", 10, "--shard", "0/2", "-o", "/tmp/never.ctmt")
+    r = cli("build", "--sample", 10, "--shard", "0/2", "-o", tmp_path / "never.ctmt")
     assert r.returncode == 2 and "--seed" in r.stderr and len(r.stderr.strip().splitlines()) == 1
     for target, fragment in [("5x", "neither"), ("200%@3", "between 0 and 1"), ("0s", "longer than 0"),
                              ("infs", "finite")]:
-        r = cli("build", "--until", target, "-o", "/tmp/never.ctmt")
+        r = cli("build", "--until", target, "-o", tmp_path / "never.ctmt")
         assert r.returncode == 2 and fragment in r.stderr and len(r.stderr.strip().splitlines()) == 1
 
 

@@ -171,15 +171,15 @@ def test_dask_local_cluster_gives_identical_body(single_42):
     assert body(Table.from_tally(t)) == body(single_42)
 
 
-def test_unreachable_scheduler_is_one_line():
+def test_unreachable_scheduler_is_one_line(tmp_path):
     r = subprocess.run([sys.executable, "-m", "ctmtab", "build", "--states", "3", "--scheduler",
-                        "tcp://127.0.0.1:9", "-o", "/tmp/never.ctmt"], capture_output=True, text=True)
+                        "tcp://127.0.0.1:9", "-o", str(tmp_path / "never.ctmt")], capture_output=True, text=True)
     assert r.returncode == 2 and "Dask scheduler" in r.stderr
     assert len(r.stderr.strip().splitlines()) == 1
 
 
 @pytest.mark.parametrize("text", ["3/3", "a/b", "-1/2", "1"])
-def test_bad_shard_is_one_line(text):
-    r = subprocess.run([sys.executable, "-m", "ctmtab", "build", "--shard", text, "-o", "/tmp/never.ctmt"],
+def test_bad_shard_is_one_line(text, tmp_path):
+    r = subprocess.run([sys.executable, "-m", "ctmtab", "build", "--shard", text, "-o", str(tmp_path / "never.ctmt")],
                        capture_output=True, text=True)
     assert r.returncode == 2 and "shard" in r.stderr and len(r.stderr.strip().splitlines()) == 1

@@ -301,6 +301,7 @@ def test_sampled_resume_with_an_error_target_is_identical(tmp_path, monkeypatch)
     assert again.until["stopped_by"] == fresh.until["stopped_by"] == "target"
 
 
+@pytest.mark.ci_slow  # 10 to 25 s: a sampled build killed, resumed and built again
 def test_killed_sampled_build_resumes_to_an_identical_table(tmp_path):
     """SIGKILL a real sampled build once a part is on disk, run the same command, compare bytes."""
     out, parts = tmp_path / "s.ctmt", tmp_path / "s.ctmt.parts"

@@ -473,6 +473,7 @@ int ctm_sample(ctm_unit *u, uint64_t count) {
                    u->origin_y, u->origin_y, 0, 1};
     root.head = cell(u, root.x, root.y);
     u->probe_seed = 0; /* init seeded the stream from it; the runs are tallied, not probed */
+    u->cps_at = 0;     /* samples try the CPS at the cap only: few reach it, and none is weighted */
     for (uint64_t i = 0; i < count; i++) {
         int halts = 0;
         for (int e = 0; e < u->nent; e++) {

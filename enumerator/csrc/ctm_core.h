@@ -7,7 +7,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define CTM_API_VERSION 1
+#define CTM_API_VERSION 2
 
 #define CTM_OK 0
 #define CTM_ENOMEM (-1)    /* an allocation failed */
