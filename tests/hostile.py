@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import hashlib
 import struct
+import warnings
 
 import msgpack
 import zstandard
@@ -111,3 +112,16 @@ def small_2d() -> bytes:
     from ctmtab.tables import load
 
     return Table.from_tally(load("2d-n2-m2-t2000").to_tally(), command="test", builder="tests").to_bytes()
+
+
+def load_or_refuse(data: bytes):
+    """The table a damaged file loads as, or None where the reader refuses it with a TableError
+    (the only failure allowed); format warnings are silenced."""
+    from ctmtab.errors import TableError
+    from ctmtab.tables import loads
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            return loads(data)
+    except TableError:
+        return None

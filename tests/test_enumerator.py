@@ -89,7 +89,8 @@ def test_deciders_prove_what_they_claim():
     # every decider moves weight from undecided to proven, never the other way; cap 20 is below
     # S(3) = 21 (Lin & Rado 1965), so the step bound proves nothing here
     none = build(Space(1, 3, 2), 20, deciders=(), budget_hours=None)
-    each = [build(Space(1, 3, 2), 20, deciders=(d,), budget_hours=None) for d in DECIDERS]
+    # (the CPS runs in builds from cap 128 only; tests/test_certify.py checks it through the core)
+    each = [build(Space(1, 3, 2), 20, deciders=(d,), budget_hours=None) for d in DECIDERS if d != "ngram-cps"]
     assert none.step_bound is None and all(t.undecided < none.undecided for t in each)
     assert build(Space(1, 3, 2), 20).undecided <= min(t.undecided for t in each)
 
