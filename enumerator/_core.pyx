@@ -126,10 +126,20 @@ cdef _setup(ctm_unit *u, int dims, int n, int m, int64_t cap, unsigned deciders)
 cdef dict _map_items(ctm_map *mp):
     cdef size_t j
     out = {}
+    if mp.hashes == NULL or mp.size == 0:
+        return out
     for j in range(mp.cap):
         if mp.hashes[j]:
             out[mp.arena[mp.offs[j]:mp.offs[j] + mp.lens[j]]] = _int(&mp.vals[j])
     return out
+
+
+cdef list _hist(ctm_count *h, int64_t n):
+    """A histogram up to its last non-zero entry (sums of histograms pad the shorter ones)."""
+    cdef int64_t end = n
+    while end > 0 and ctm_count_lo(&h[end - 1]) == 0 and ctm_count_hi(&h[end - 1]) == 0:
+        end -= 1
+    return [_int(&h[i]) for i in range(end)]
 
 
 cdef dict _result(ctm_unit *u, int64_t cap):
@@ -146,8 +156,8 @@ cdef dict _result(ctm_unit *u, int64_t cap):
         halting=_int(&u.halting),
         non_halting=_int(&u.non_halting),
         undecided=_int(&u.undecided),
-        hist_steps=[_int(&u.hist_steps[i]) for i in range(cap + 1)],
-        hist_len=[_int(&u.hist_len[i]) for i in range(cap + 2)],
+        hist_steps=_hist(u.hist_steps, cap + 1),
+        hist_len=_hist(u.hist_len, cap + 2),
         halting_nodes=int(u.halting_nodes),
         undecided_nodes=int(u.undecided_nodes),
         longest_run=int(u.longest_run),

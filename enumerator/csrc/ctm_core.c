@@ -114,8 +114,7 @@ int ctm_unit_init(ctm_unit *u) {
     u->scratch = malloc(u->scratch_cap);
     u->hist_steps = calloc((size_t)u->cap + 1, sizeof(ctm_count));
     u->hist_len = calloc((size_t)u->cap + 2, sizeof(ctm_count));
-    int rc = ctm_map_init(&u->raw);
-    if (!rc) rc = ctm_map_init(&u->undec);
+    int rc = ctm_map_init(&u->raw); /* u->undec is made at the first undecided node */
     if (rc || !u->tape || !u->snap || !u->scratch || !u->hist_steps || !u->hist_len) {
         ctm_unit_free(u);
         return CTM_ENOMEM;
@@ -414,6 +413,7 @@ static int give_up(ctm_unit *u, const config *box, int64_t step, ctm_count weigh
     uint32_t size[2] = {(uint32_t)(box->yhi - box->ylo + 1), (uint32_t)(box->xhi - box->xlo + 1)};
     uint8_t key[8];
     u->undecided_nodes++;
+    if (!u->undec.hashes && ctm_map_init(&u->undec)) return CTM_ENOMEM;
     memcpy(key, size, sizeof key); /* little-endian hosts only, as the rest of the core */
     int rc = ctm_map_add(&u->undec, key, sizeof key, weight);
     if (rc || !u->keep_holdouts) return rc;
