@@ -54,6 +54,22 @@ class InconsistentTableError(TableError):
     """The metadata contradicts the body."""
 
 
+class CoreArgumentError(CtmtabError, ValueError):
+    """The compiled core refused an argument: a space, cap, work-unit prefix or machine."""
+
+
+class CoreOverflowError(TooLargeError):
+    """An exact weight would not fit the core's 128 bits."""
+
+
+class CoreMemoryError(CtmtabError, MemoryError):
+    """The compiled core ran out of memory."""
+
+
+class CoreStoppedError(CtmtabError):
+    """The core stopped because the caller asked it to."""
+
+
 class CoreMissingError(CtmtabError, ImportError):
     """The compiled core is missing or stale: only building and running machines need it."""
 

@@ -9,7 +9,7 @@ cdef extern from "csrc/ctm_core.h" nogil:
     ctypedef struct ctm_count:
         pass
     int CTM_API_VERSION
-    int CTM_OK, CTM_ENOMEM, CTM_EINVAL, CTM_EOVERFLOW
+    int CTM_OK, CTM_ENOMEM, CTM_EINVAL, CTM_EOVERFLOW, CTM_ESTOP
     int CTM_NX_HALT, CTM_NX_UNDEF
     int CTM_MAX_ENTRIES
     int CTM_MAX_CAP_2D
@@ -90,18 +90,23 @@ NX_HALT = CTM_NX_HALT
 NX_UNDEF = CTM_NX_UNDEF
 
 
-class CoreError(RuntimeError):
-    """The C core reported an error code."""
+from ctmtab.errors import (CoreArgumentError, CoreMemoryError, CoreOverflowError, CoreStoppedError,
+                           InvariantError)
+
+# Every core error code has its own class (a code the binding does not know is a bug: exit 3).
+_ERRORS = {
+    CTM_ENOMEM: (CoreMemoryError, "; use fewer --workers or a smaller cap"),
+    CTM_EINVAL: (CoreArgumentError, ""),
+    CTM_EOVERFLOW: (CoreOverflowError, "; use fewer states or symbols"),
+    CTM_ESTOP: (CoreStoppedError, ""),
+}
 
 
 cdef int _check(int rc) except -1:
     if rc == CTM_OK:
         return 0
-    if rc == CTM_ENOMEM:
-        raise MemoryError(ctm_strerror(rc).decode())
-    if rc == CTM_EINVAL or rc == CTM_EOVERFLOW:
-        raise ValueError(ctm_strerror(rc).decode())
-    raise CoreError(ctm_strerror(rc).decode())
+    cls, hint = _ERRORS.get(rc, (InvariantError, f" (code {rc}); this is a bug, please report it"))
+    raise cls("the compiled core: " + ctm_strerror(rc).decode() + hint)
 
 
 cdef object _int(const ctm_count *x):

@@ -24,11 +24,12 @@ from .deciders import ALL_DECIDERS, CPS_MIN_CAP, DECIDERS
 # 100-2000 and (4,2) at cap 2000 (README.md). A 2D step costs more (grid rows lie 2 cap + 3 bytes
 # apart), and every 2D unit pays for its (2 cap + 3)^2 grid, which dominates small 2D builds.
 STEPS_PER_SECOND = 2e8       # 1D
-STEPS_PER_SECOND_2D = 7e7
+STEPS_PER_SECOND_2D = 2.5e7  # with the 2D translated cycler's records (2D (4,2) cap 2000)
 NODES_PER_SECOND = 1.5e6     # branch points at m = 2; each tallies m HALT leaves, so cost grows with m
 UNIT_SECONDS = 8e-5          # per unit: Python, the executor, the merge
-CELL_SECONDS = 2e-10         # per 2D unit and grid cell
+CELL_SECONDS = 8e-12         # per 2D unit and grid cell (the grid is mapped lazily)
 PROBE_CELL_SECONDS = 8e-11   # what a probe pays per grid cell to set up, before any walk
+CPS_SECONDS_PER_NODE = 1.5e-6  # the CPS per branch point of the tree: 1D (5,2) cap 500 (README.md)
 PILOT_UNITS = 48             # units a pilot estimate probes when probing all of them would cost
 DEFAULT_BUDGET_HOURS = 24.0
 
@@ -43,11 +44,11 @@ def decider_bits(names) -> int:
 
 
 def search_bits(space: Space, cap: int, deciders) -> int:
-    """The decider bits an exhaustive search runs with. At a cap at or past a proven busy-beaver
+    """The decider bits an exhaustive search runs with. The CPS is 1D only. At a cap at or past a proven busy-beaver
     bound every undecided node is proven by the bound, and below CPS_MIN_CAP most undecided runs
     are only cut short (they branch soon after): in both cases the CPS would only cost time."""
     bits = decider_bits(deciders)
-    if bound_reached(space, cap) is not None or cap < CPS_MIN_CAP:
+    if space.dims == 2 or bound_reached(space, cap) is not None or cap < CPS_MIN_CAP:
         bits &= ~DECIDERS["ngram-cps"]
     return bits
 
@@ -61,13 +62,15 @@ class Estimate:
     units: int = 0                # work units the build runs
     cells: int = 0                # grid cells each unit sets up
     probed: int | None = None     # units the walks probed (None: all; fewer for a pilot)
+    cps: bool = False             # the n-gram CPS runs (1D, caps from CPS_MIN_CAP)
 
     @property
     def seconds(self) -> float:
         """Single-core seconds."""
         rate = STEPS_PER_SECOND if self.dims == 1 else STEPS_PER_SECOND_2D
         per_unit = UNIT_SECONDS + (CELL_SECONDS * self.cells if self.dims == 2 else 0.0)
-        return self.steps / rate + self.nodes * self.symbols / 2 / NODES_PER_SECOND + self.units * per_unit
+        node_rate = NODES_PER_SECOND if not self.cps else 1 / (1 / NODES_PER_SECOND + CPS_SECONDS_PER_NODE)
+        return self.steps / rate + self.nodes * self.symbols / 2 / node_rate + self.units * per_unit
 
 
 def _grid_cells(space: Space, cap: int) -> int:
@@ -117,7 +120,8 @@ def estimate(space: Space, cap: int, deciders=ALL_DECIDERS, walks: int = 20_000,
         scale = len(p.units) / len(units) if units else 1.0
         return Estimate(float(p.top["halting_nodes"]) + scale * nodes, float(p.top["steps"]) + scale * steps,
                         space.dims, space.symbols, p.count, cells,
-                        None if len(units) == len(p.units) else len(units))
+                        None if len(units) == len(p.units) else len(units),
+                        bool(bits & DECIDERS["ngram-cps"]))
 
     costly = len(p.units) * cells * PROBE_CELL_SECONDS > 0.05
     if enough is not None and costly and len(p.units) > PILOT_UNITS:

@@ -181,3 +181,15 @@ def test_shipped_five_state_table_matches_the_published_one():
     assert 0 < 48_379_894 - nodes < 48_379_894 // 10_000
     assert t.halting + t.non_halting + t.undecided == Space(1, 5, 2).size  # OEIS A141475, n = 5
     assert problems(t) == []
+
+
+def test_every_core_error_code_has_its_own_class():
+    from ctmtab.enumerator.native import core
+    from ctmtab.errors import CoreArgumentError, CoreOverflowError, CtmtabError
+    with pytest.raises(CoreOverflowError, match="128 bits"):  # 45^25 machines: 138 bits
+        core.run_unit(1, 5, 5, 10, 15)
+    with pytest.raises(CoreArgumentError, match="invalid argument"):
+        core.run_unit(1, 2, 2, 10, 15, (99,))
+    assert issubclass(CoreArgumentError, CtmtabError) and CoreArgumentError("x").exit_code == 2
+    r = core.sample_unit(1, 5, 5, 100, 15, 7, 100)  # sampling counts samples: no 128-bit bound
+    assert r["halting"] + r["non_halting"] + r["undecided"] == 100

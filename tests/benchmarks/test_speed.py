@@ -90,3 +90,31 @@ def test_sampling_per_core(benchmark, n, m, cap):
                                rounds=5, iterations=1)
     assert tally.samples == 500_000 and tally.undecided < tally.samples // 100
     benchmark.extra_info["samples"] = tally.samples
+
+
+@pytest.fixture(scope="module")
+def holdouts_52():
+    """The nodes that 8 work units of 1D (5,2) at cap 500 leave undecided without the CPS."""
+    from ctmtab.enumerator import plan
+    from ctmtab.enumerator.native import core
+    from ctmtab.enumerator import holdouts
+    space = Space(1, 5, 2)
+    p = plan(space, 500, None, ("full-table", "escapee", "cycler", "translated-cycler"))
+    blobs = [core.run_unit(1, 5, 2, 500, 15, u.prefix, -1, True)["holdouts"] for u in p.units[::len(p.units) // 8][:8]]
+    nodes = []
+    for de, wr, mv, nx, *_ in (r for blob in blobs for r in holdouts.records(space, blob)):
+        nodes.append(tuple(np.frombuffer(x, dtype) for x, dtype in
+                           ((de, np.int8), (wr, np.uint8), (mv, np.int8), (nx, np.uint8))))
+    return nodes
+
+
+def test_ngram_cps_on_52_holdouts(benchmark, holdouts_52):
+    """n-gram CPS over every node the other deciders leave (the full schedule, one call each)."""
+    from ctmtab.enumerator.native import core
+
+    def prove_all():
+        return sum(core.cps_prove(5, 2, *node) > 0 for node in holdouts_52)
+
+    proved = benchmark.pedantic(prove_all, rounds=3, iterations=1)
+    benchmark.extra_info.update(nodes=len(holdouts_52), proved=proved)
+    assert proved > 0.9 * len(holdouts_52)
