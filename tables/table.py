@@ -515,11 +515,10 @@ class Table:
                 self._missing("(one of the keys)", "raise")
             ctm[absent] = self._missing(None, missing)
         out = {"count": counts, "probability": counts / self.total, "ctm": ctm}
-        if self.mode == "exhaustive":  # certified bounds; one shape at a time for the reach
-            shapes = [shape] * len(counts) if isinstance(keys, np.ndarray) and keys.ndim == self.space.dims + 1 \
-                else [s for s, _ in parsed]
-            per_shape = {s: self.undecided_reach(s) for s in dict.fromkeys(shapes)}
-            reach = np.array([per_shape[s] for s in shapes], dtype=np.float64)
+        if self.mode == "exhaustive":  # certified bounds: the reach is one number per shape
+            reach = np.zeros(n)
+            for shape, (idx, _) in batches.items():
+                reach[slice(None) if idx is None else idx] = float(self.undecided_reach(shape))
             out["ctm_low"], out["ctm_high"] = certify.bounds(counts, reach, self.undecided_runs, self.total)
         if self.mode == "sampled":
             with np.errstate(divide="ignore", invalid="ignore"):
