@@ -277,3 +277,24 @@ def test_cps_proofs_on_52_holdouts_survive_a_long_run():
                 proved += 1
                 assert run(mach, 20_000).status != "undefined", mach
     assert proved > 1000
+
+
+def test_the_command_line_shows_the_certificate(tmp_path):
+    import subprocess
+    import sys
+
+    def ctm(*args):
+        return subprocess.run([sys.executable, "-m", "ctmtab", *map(str, args)], capture_output=True, text=True)
+
+    out, holds = tmp_path / "t.ctmt", tmp_path / "h.txt"
+    r = ctm("build", "--states", 3, "--max-steps", 12, "-o", out, "--holdouts", holds, "-q")
+    assert r.returncode == 0, r.stderr
+    lines = holds.read_text().splitlines()
+    info = ctm("info", out).stdout
+    assert f"{len(lines) - 1:,} tree nodes remain" in info and "widest certified interval" in info
+    assert ctm("build", "--states", 3, "-o", tmp_path / "x.ctmt", "--holdouts", tmp_path).returncode == 2
+    r = ctm("build", "--states", 3, "--sample", 100, "-o", tmp_path / "s.ctmt", "--holdouts", holds)
+    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1
+    exact = ctm("lookup", "1d-n4-m2-t107", "0110").stdout
+    assert "exact (step bound)" in exact
+    assert "proven non-halting by the step bound S = 107" in ctm("info", "1d-n4-m2-t107").stdout

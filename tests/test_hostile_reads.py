@@ -416,7 +416,9 @@ NESTED = [("space", "dims"), ("space", "states"), ("space", "symbols"), ("totals
           ("totals", "space_size"), ("stats", "longest_run"), ("stats", "most_nonblank"), ("units", "count"),
           ("units", "covered"), ("units", "weight"), ("units", "shard"), ("build", "seconds"),
           ("build", "command"), ("build", "by"), ("build", "extended"), ("generator", "version"),
-          ("keys", "distinct"), ("keys", "groups"), ("body", "raw_size")]
+          ("keys", "distinct"), ("keys", "groups"), ("body", "raw_size"),
+          ("certificate", "proofs"), ("certificate", "undecided_by_size"), ("certificate", "undecided_nodes"),
+          ("certificate", "step_bound")]
 odd = st.one_of(st.none(), st.booleans(), st.integers(-2**63, 2**64 - 1), st.sampled_from([10**9, 10**18, 2**31]),
                 st.floats(allow_nan=True, allow_infinity=True), st.text(max_size=6), st.binary(max_size=6),
                 st.lists(st.one_of(st.integers(-3, 10**6), st.lists(st.integers(0, 10**6), max_size=3)), max_size=3),

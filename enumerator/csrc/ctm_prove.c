@@ -29,6 +29,7 @@ typedef struct {
     uint16_t *keys;
     int32_t *slots;
     uint32_t *gens;
+    uint32_t *tags;   /* per slot: high bits of the key's hash, checked before the key */
     uint32_t gen;
     size_t count, cap, nslots, limit;
 } wset;
@@ -46,16 +47,19 @@ static int wset_init(wset *s) {
     s->keys = malloc(s->cap * sizeof *s->keys);
     s->slots = malloc(s->nslots * sizeof *s->slots);
     s->gens = calloc(s->nslots, sizeof *s->gens);
-    return s->keys && s->slots && s->gens ? CTM_OK : CTM_ENOMEM;
+    s->tags = malloc(s->nslots * sizeof *s->tags);
+    return s->keys && s->slots && s->gens && s->tags ? CTM_OK : CTM_ENOMEM;
 }
 
 static void wset_free(wset *s) {
     free(s->keys);
     free(s->slots);
     free(s->gens);
+    free(s->tags);
     s->keys = NULL;
     s->slots = NULL;
     s->gens = NULL;
+    s->tags = NULL;
 }
 
 static void wset_reset(wset *s, int len, size_t limit) {
@@ -69,45 +73,68 @@ static void wset_reset(wset *s, int len, size_t limit) {
 }
 
 static uint64_t whash(const uint16_t *w, int len) {
-    uint64_t h = 0x9e3779b97f4a7c15ull;
-    for (int i = 0; i < len; i++) h = (h ^ w[i]) * 0x100000001b3ull;
+    /* four cells per 64-bit word, then one multiply-xorshift round each */
+    uint64_t h = 0x9e3779b97f4a7c15ull ^ (uint64_t)len;
+    int i = 0;
+    for (; i + 4 <= len; i += 4) {
+        uint64_t x;
+        memcpy(&x, w + i, sizeof x);
+        h = (h ^ x) * 0xbf58476d1ce4e5b9ull;
+        h ^= h >> 29;
+    }
+    uint64_t x = 0;
+    for (int k = 0; i < len; i++, k += 16) x |= (uint64_t)w[i] << k;
+    h = (h ^ x) * 0x94d049bb133111ebull;
     h ^= h >> 31;
     return h * 0xbf58476d1ce4e5b9ull;
 }
 
+/* Words are a few cells long: a plain loop beats a call to memcmp. */
+static inline int weq(const uint16_t *a, const uint16_t *b, int len) {
+    for (int i = 0; i < len; i++)
+        if (a[i] != b[i]) return 0;
+    return 1;
+}
+
 static int wset_rehash(wset *s, size_t ns) {
     int32_t *sl = malloc(ns * sizeof *sl);
-    uint32_t *gn = calloc(ns, sizeof *gn);
-    if (!sl || !gn) { free(sl); free(gn); return CTM_ENOMEM; }
+    uint32_t *gn = calloc(ns, sizeof *gn), *tg = malloc(ns * sizeof *tg);
+    if (!sl || !gn || !tg) { free(sl); free(gn); free(tg); return CTM_ENOMEM; }
     for (size_t i = 0; i < s->count; i++) {
-        size_t q = (size_t)(whash(s->keys + i * (size_t)s->len, s->len) >> 20) & (ns - 1);
+        uint64_t h = whash(s->keys + i * (size_t)s->len, s->len);
+        size_t q = (size_t)(h >> 20) & (ns - 1);
         while (gn[q] == s->gen) q = (q + 1) & (ns - 1);
         sl[q] = (int32_t)i;
         gn[q] = s->gen;
+        tg[q] = (uint32_t)(h >> 32);
     }
     free(s->slots);
     free(s->gens);
+    free(s->tags);
     s->slots = sl;
     s->gens = gn;
+    s->tags = tg;
     s->nslots = ns;
     return CTM_OK;
 }
 
 /* The index of word w in the set, or -1. */
 static int32_t wset_find(const wset *s, const uint16_t *w) {
-    size_t mask = s->nslots - 1, j = (size_t)(whash(w, s->len) >> 20) & mask;
-    const size_t bytes = (size_t)s->len * sizeof *w;
+    const uint64_t h = whash(w, s->len);
+    const uint32_t tag = (uint32_t)(h >> 32);
+    size_t mask = s->nslots - 1, j = (size_t)(h >> 20) & mask;
     for (; s->gens[j] == s->gen; j = (j + 1) & mask)
-        if (!memcmp(s->keys + (size_t)s->slots[j] * (size_t)s->len, w, bytes)) return s->slots[j];
+        if (s->tags[j] == tag && weq(s->keys + (size_t)s->slots[j] * (size_t)s->len, w, s->len)) return s->slots[j];
     return -1;
 }
 
 /* 1: inserted, 0: present, 2: the set reached its limit, <0: error */
 static int wset_add(wset *s, const uint16_t *w) {
-    size_t mask = s->nslots - 1, j = (size_t)(whash(w, s->len) >> 20) & mask;
-    const size_t bytes = (size_t)s->len * sizeof *w;
+    const uint64_t h = whash(w, s->len);
+    const uint32_t tag = (uint32_t)(h >> 32);
+    size_t mask = s->nslots - 1, j = (size_t)(h >> 20) & mask;
     for (; s->gens[j] == s->gen; j = (j + 1) & mask)
-        if (!memcmp(s->keys + (size_t)s->slots[j] * (size_t)s->len, w, bytes)) return 0;
+        if (s->tags[j] == tag && weq(s->keys + (size_t)s->slots[j] * (size_t)s->len, w, s->len)) return 0;
     if (s->count >= s->limit) return 2;
     if ((s->count + 1) * (size_t)s->len > s->cap) {
         uint16_t *k = realloc(s->keys, s->cap * 2 * sizeof *k);
@@ -115,9 +142,10 @@ static int wset_add(wset *s, const uint16_t *w) {
         s->keys = k;
         s->cap *= 2;
     }
-    memcpy(s->keys + s->count * (size_t)s->len, w, bytes);
+    memcpy(s->keys + s->count * (size_t)s->len, w, (size_t)s->len * sizeof *w);
     s->slots[j] = (int32_t)s->count++;
     s->gens[j] = s->gen;
+    s->tags[j] = tag;
     if (s->count * 2 > s->nslots) return wset_rehash(s, s->nslots * 2) ? CTM_ENOMEM : 1;
     return 1;
 }
@@ -244,7 +272,7 @@ static int cps_once(ctm_cps_ws *ws, const ctm_machine *mc, int n, int k, size_t 
         ws->first[side][key] = (int32_t)i;
         for (size_t g = 0; g < pull->count; g++) {
             const uint16_t *cand = pull->keys + g * (size_t)n;
-            if (memcmp(right ? cand : cand + 1, want, (size_t)(n - 1) * sizeof *cand)) continue;
+            if (!weq(right ? cand : cand + 1, want, n - 1)) continue;
             successor(&x, cfg, cand, nxt);
             if ((rc = wset_add(C, nxt)) < 0) return rc;
             if (rc == 2) return NOT_PROVEN;
