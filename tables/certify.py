@@ -66,7 +66,7 @@ def _whole(v, what: str) -> int:
     return v
 
 
-def parse(header: dict, non_halting: int, undecided: int, cap: int) -> Certificate | None:
+def parse(header: dict, non_halting: int, undecided: int, cap: int, dims: int = 1) -> Certificate | None:
     """The certificate of a loaded header, checked against the totals; None when absent."""
     cert = header.get("certificate")
     if cert is None:
@@ -83,8 +83,9 @@ def parse(header: dict, non_halting: int, undecided: int, cap: int) -> Certifica
         if not isinstance(entry, list) or len(entry) != 3:
             raise InconsistentTableError("an undecided_by_size entry is not [rows, cols, weight]")
         r, c, w = _whole(entry[0], "rows"), _whole(entry[1], "cols"), _whole(entry[2], "weight")
-        if not (1 <= r <= 2 * cap + 1 and 1 <= c <= 2 * cap + 1):
-            raise InconsistentTableError(f"an undecided size {r}x{c} cannot arise under cap {cap}")
+        # a run of at most cap steps visits at most cap + 1 cells along each axis; 1D has one row
+        if not (1 <= r <= (1 if dims == 1 else cap + 1) and 1 <= c <= cap + 1):
+            raise InconsistentTableError(f"an undecided size {r}x{c} cannot arise in {dims}D under cap {cap}")
         by_size.append((r, c, w))
     if sum(parsed_proofs.values()) != non_halting:
         raise InconsistentTableError("the certificate's proofs do not sum to the non-halting total")

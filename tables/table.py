@@ -93,7 +93,7 @@ class Table:
         self.min_seen = DEFAULT_MIN_SEEN
         self._index = {}
         self.total = sum(exact_sum(g.counts) for g in groups.values())
-        self.certificate = certify.parse(header, self.non_halting, self.undecided, self.cap)
+        self.certificate = certify.parse(header, self.non_halting, self.undecided, self.cap, self.space.dims)
 
     # ---- identity and totals
     @property

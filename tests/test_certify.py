@@ -213,6 +213,11 @@ def test_a_certificate_that_contradicts_the_totals_is_refused():
     cert["undecided_by_size"], cert["step_bound"] = [], {"steps": 5, "source": "x"}
     with pytest.raises(InconsistentTableError):
         Table(header, t.groups, t.hist_steps, t.hist_len)
+    cert["step_bound"] = None
+    for size in ([2, 3], [1, 12]):  # 1D has one row; 10 steps reach at most 11 cells
+        cert["undecided_by_size"] = [size + [str(t.undecided)]]
+        with pytest.raises(InconsistentTableError, match="cannot arise"):
+            Table(header, t.groups, t.hist_steps, t.hist_len)
 
 
 def test_a_table_without_certificate_falls_back_to_the_total():
@@ -298,3 +303,19 @@ def test_the_command_line_shows_the_certificate(tmp_path):
     exact = ctm("lookup", "1d-n4-m2-t107", "0110").stdout
     assert "exact (step bound)" in exact
     assert "proven non-halting by the step bound S = 107" in ctm("info", "1d-n4-m2-t107").stdout
+
+
+@pytest.mark.parametrize("prefix,what", [
+    ((1, 0), "0EB---_0NA---_------: a diagonal staircase on blank cells (shared/notes/undecided.md)"),
+    ((3, 0), "1EB---_0NA---_------: the same staircase, leaving 1s behind it"),
+])
+def test_2d_translated_cycler_proves_a_hand_built_glider(prefix, what):
+    """The search follows the machine's two entries (A0: write, move E, the new state B; B0: write
+    0, move N, back to A) and stops at the node: the run climbs NE forever and never reads a
+    written cell, so it never halts. Only the 2D translated cycler sees it."""
+    with_it = _core.run_unit(2, 3, 2, 2000, 15, prefix)
+    without = _core.run_unit(2, 3, 2, 2000, 7, prefix)
+    assert with_it["halting"] == without["halting"] == 0
+    assert without["undecided"] > 0 and with_it["undecided"] == 0
+    assert with_it["proven"][3] == without["undecided"]  # proven by the translated cycler, bit 8
+    assert with_it["steps"] < without["steps"] // 10     # and early, long before the cap
