@@ -319,3 +319,21 @@ def test_2d_translated_cycler_proves_a_hand_built_glider(prefix, what):
     assert without["undecided"] > 0 and with_it["undecided"] == 0
     assert with_it["proven"][3] == without["undecided"]  # proven by the translated cycler, bit 8
     assert with_it["steps"] < without["steps"] // 10     # and early, long before the cap
+
+
+def test_2d_translated_cycler_needs_the_edges_a_diagonal_shift_points_past():
+    """A 2D (4,2) node (found in review) whose records on the north side repeat shifted by (1, -1)
+    at steps 21 and 29 while the head is not on the east edge: the staircase then meets cells
+    written before step 21 and reaches its undefined entry at step 48. It must not be proven."""
+    prefix = (3, 11, 24, 7, 30, 30, 1)  # 1EB0EC_1NC0ND_1SA1WC_1WC---, first move E, in search order
+    with_it, without = (_core.run_unit(2, 4, 2, 64, bits, prefix) for bits in (15, 7))
+    assert without["halting"] > 0 and with_it["halting"] == without["halting"]
+
+
+@pytest.mark.ci_slow
+@pytest.mark.parametrize("cap", [64, 512])
+def test_2d_translated_cycler_keeps_every_halt_of_42(cap):
+    """2D (4,2), the whole space: the halting weight is the same with and without the 2D
+    translated cycler (a wrong proof of a node that halts by the cap would lower it)."""
+    with_it, without = (_core.run_unit(2, 4, 2, cap, bits) for bits in (15, 7))
+    assert with_it["halting"] == without["halting"] and with_it["undecided"] < without["undecided"]

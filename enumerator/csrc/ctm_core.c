@@ -349,12 +349,17 @@ static int translated(ctm_unit *u, int side, int state, int64_t pos, int64_t rea
  * `side`, so every cell beyond that edge is blank) in state q at h2, take an
  * earlier record on the same side in state q at h1, v = h2 - h1, and B the box
  * of head positions since then. If the cells of B held at h1's time what the
- * cells of B + v hold now, the stretch from h1 to h2 repeats forever, shifted
- * by v each time: it reads only B, what lies beyond the edge is blank both
- * times, and by induction the next stretch finds the same cells again.
+ * cells of B + v hold now, and at both times the head lay on every edge of the
+ * box that v points past, the stretch from h1 to h2 repeats forever, shifted by
+ * v each time: it reads only B; B + kv lies in B + (k-1)v, whose cells the
+ * stretch before rewrote just as it found them, and beyond those edges, which
+ * are blank then; so by induction each stretch finds the cells the last one did.
  * `run` is the box of head positions since the latest record. */
-static int translated2(ctm_unit *u, int side, int state, int64_t x, int64_t y, const int64_t run[4]) {
+static int translated2(ctm_unit *u, int side, int state, int64_t x, int64_t y, const int64_t run[4],
+                       const int64_t box[4]) {
     enum { W = CTM_REC2_W, H = CTM_REC2_W / 2 };
+    const unsigned edges = (y == box[2] ? 1u : 0u) | (x == box[1] ? 2u : 0u) | (y == box[3] ? 4u : 0u) |
+                           (x == box[0] ? 8u : 0u);
     const int k = u->rec2_n % CTM_REC2_RING;
     const int have = u->rec2_n < CTM_REC2_RING ? u->rec2_n : CTM_REC2_RING;
     const int64_t lim = u->stride; /* coordinates run over 0 .. stride-1 */
@@ -364,7 +369,11 @@ static int translated2(ctm_unit *u, int side, int state, int64_t x, int64_t y, c
         int j = (k - i + CTM_REC2_RING) % CTM_REC2_RING;
         if (u->rec2_side[j] == side && u->rec2_state[j] == state) {
             int64_t x1 = u->rec2_x[j], y1 = u->rec2_y[j], vx = x - x1, vy = y - y1;
-            int fits = b[0] >= x1 - H && b[1] < x1 - H + W && b[2] >= y1 - H && b[3] < y1 - H + W &&
+            /* the head must lie on every edge that v points past, at both times: then each
+             * later stretch meets, outside the cells the one before it wrote, only cells
+             * beyond those edges, which are blank (a diagonal v needs both edges) */
+            unsigned need = (vy < 0 ? 1u : 0u) | (vx > 0 ? 2u : 0u) | (vy > 0 ? 4u : 0u) | (vx < 0 ? 8u : 0u);
+            int fits = (u->rec2_edges[j] & need) == need && (edges & need) == need && b[0] >= x1 - H && b[1] < x1 - H + W && b[2] >= y1 - H && b[3] < y1 - H + W &&
                        b[0] + vx >= 0 && b[1] + vx < lim && b[2] + vy >= 0 && b[3] + vy < lim;
             if (fits) {
                 const uint8_t *old = u->rec2_cells[j];
@@ -389,6 +398,7 @@ static int translated2(ctm_unit *u, int side, int state, int64_t x, int64_t y, c
         return found;
     }
     u->rec2_side[k] = (int8_t)side;
+    u->rec2_edges[k] = (uint8_t)edges;
     u->rec2_state[k] = state;
     u->rec2_x[k] = x;
     u->rec2_y[k] = y;

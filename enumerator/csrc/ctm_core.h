@@ -140,6 +140,7 @@ typedef struct {
      * box of head positions since the record before and the cells around it */
     int rec2_n;
     int8_t rec2_side[CTM_REC2_RING];
+    uint8_t rec2_edges[CTM_REC2_RING]; /* the box edges the head was on: 1 N, 2 E, 4 S, 8 W */
     int rec2_state[CTM_REC2_RING];
     int64_t rec2_x[CTM_REC2_RING], rec2_y[CTM_REC2_RING];
     int64_t rec2_box[CTM_REC2_RING][4]; /* xlo, xhi, ylo, yhi */

@@ -215,7 +215,10 @@ static void successor(const cps_ctx *x, const uint16_t *cfg, const uint16_t *g, 
  * match, for n-grams that arrive after it, so nothing is ever rescanned. */
 static int cps_once(ctm_cps_ws *ws, const ctm_machine *mc, int n, int k, size_t limit) {
     cps_ctx x = {n, mc->m, mc->n * mc->m, 1, mc};
-    for (int i = 0; i < k; i++) x.period *= (uint32_t)(x.nent + 1);
+    for (int i = 0; i < k; i++) { /* cells must fit uint16: give up before the product can wrap */
+        if ((uint64_t)x.period * (uint64_t)(x.nent + 1) * (uint64_t)x.m > 65535u) return NOT_PROVEN;
+        x.period *= (uint32_t)(x.nent + 1);
+    }
     if ((uint64_t)x.period * (uint64_t)x.m > 65535u) return NOT_PROVEN;
     const int clen = 2 * n + 2; /* state, left window, head cell, right window */
     wset *L = &ws->sets[0], *R = &ws->sets[1], *C = &ws->sets[2], *K[2] = {&ws->sets[3], &ws->sets[4]};
