@@ -14,6 +14,7 @@ cdef extern from "csrc/ctm_core.h" nogil:
     int CTM_MAX_ENTRIES
     int CTM_MAX_CAP_2D
     int CTM_DEC_COUNT
+    size_t CTM_HOLDOUT_BYTES(int nent)
     const char *ctm_strerror(int code)
     ctypedef struct ctm_map:
         uint64_t *hashes
@@ -66,7 +67,6 @@ cdef extern from "csrc/ctm_core.h" nogil:
     ctm_cps_ws *ctm_cps_ws_new()
     int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts)
     int ctm_cps_attempts()
-    int ctm_cps_set_plan(const int *plan, int count)
     ctypedef struct ctm_run_result:
         int status
         uint64_t steps
@@ -221,8 +221,7 @@ def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), 
         out = _result(&u, cap)
         out["cuts"] = [(tuple(u.cuts[j * cut_depth + i] for i in range(cut_depth)), _int(&u.cut_weights[j]))
                        for j in range(u.n_cuts)] if cut_depth >= 0 else []
-        rec = 4 * n * m + 16 + 24
-        out["holdouts"] = bytes(u.holdouts[:u.n_holdouts * rec]) if u.n_holdouts else b""
+        out["holdouts"] = bytes(u.holdouts[:u.n_holdouts * CTM_HOLDOUT_BYTES(n * m)]) if u.n_holdouts else b""
         return out
     finally:
         ctm_unit_free(&u)
@@ -274,7 +273,6 @@ def run_machine(int n, int m, const uint8_t[:] wr, const int8_t[:] mv, const int
     return res.status, int(res.steps), res.state, int(res.nonblank), output, int(res.head)
 
 
-CPS_ATTEMPTS = ctm_cps_attempts()
 cdef ctm_cps_ws *_cps_ws = NULL
 
 
@@ -310,16 +308,3 @@ def cps_prove(int n, int m, const int8_t[:] defined, const uint8_t[:] wr, const 
         _check(rc)
     return rc
 
-
-def set_cps_schedule(schedule):
-    """Replace this process's CPS schedule: (window, history, log2 of the configurations allowed)
-    triples, tried in order. For measurements; every schedule is sound, some are slower."""
-    cdef int buf[96]
-    cdef int i, j
-    items = [tuple(x) for x in schedule]
-    if not 1 <= len(items) <= 32:
-        raise ValueError("a CPS schedule has 1 to 32 attempts")
-    for i in range(len(items)):
-        for j in range(3):
-            buf[3 * i + j] = items[i][j]
-    _check(ctm_cps_set_plan(buf, len(items)))

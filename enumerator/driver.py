@@ -15,7 +15,6 @@ from .space import Space, check_cap
 from .spool import Spool, kept
 from .tally import Partial, Tally, images_per_sample, relative_sample_errors, sample_sums, size_of
 from .units import Plan, default_depth, make_plan, unit_weight_ok
-
 from .bounds import bound_reached
 from .deciders import ALL_DECIDERS, CPS_MIN_CAP, DECIDERS
 
@@ -44,9 +43,9 @@ def decider_bits(names) -> int:
 
 
 def search_bits(space: Space, cap: int, deciders) -> int:
-    """The decider bits an exhaustive search runs with. The CPS is 1D only. At a cap at or past a proven busy-beaver
-    bound every undecided node is proven by the bound, and below CPS_MIN_CAP most undecided runs
-    are only cut short (they branch soon after): in both cases the CPS would only cost time."""
+    """The decider bits an exhaustive search runs with. The CPS is 1D only. At a cap at or past
+    a proven busy-beaver bound every undecided node is proven by the bound, and below CPS_MIN_CAP
+    most undecided runs are only cut short (they branch soon after): the CPS would only cost time."""
     bits = decider_bits(deciders)
     if space.dims == 2 or bound_reached(space, cap) is not None or cap < CPS_MIN_CAP:
         bits &= ~DECIDERS["ngram-cps"]
@@ -154,7 +153,7 @@ def build(
     finished units are kept, so a killed build resumes. The tally is the same for
     every split, executor, shard merge and resume. on_progress(done, total,
     weight_done, weight_total, steps) is called as units finish. holdouts keeps
-    every undecided node in part.holdouts (see holdout_lines)."""
+    every undecided node in tally.holdouts (enumerator/holdouts.py renders them)."""
     _prepare(space, cap)
     if budget_hours is not None and not (isinstance(budget_hours, (int, float)) and 0 < budget_hours < math.inf):
         raise SpaceError(f"the budget must be a positive number of CPU-hours, got {budget_hours!r}; "

@@ -34,22 +34,25 @@ class Partial:
     holdouts: list = field(default_factory=list)  # per unit: packed undecided nodes (core records)
 
     def add(self, unit: dict) -> None:
-        raw = self.raw
-        for key, w in unit["raw"].items():
-            raw[key] = raw.get(key, 0) + w
+        _add_into(self.raw, unit["raw"])
         for name in ("halting", "non_halting", "undecided", "halting_nodes", "steps"):
             setattr(self, name, getattr(self, name) + unit[name])
         self.undecided_nodes += unit.get("undecided_nodes", 0)
         self.proven = _add_lists(self.proven, unit.get("proven", []))
-        by_size = self.undecided_by_size
-        for size, w in unit.get("undecided_by_size", {}).items():
-            by_size[size] = by_size.get(size, 0) + w
+        _add_into(self.undecided_by_size, unit.get("undecided_by_size", {}))
         if unit.get("holdouts"):
             self.holdouts.append(unit["holdouts"])
         self.hist_steps = _add_lists(self.hist_steps, unit["hist_steps"])
         self.hist_len = _add_lists(self.hist_len, unit["hist_len"])
         self.longest_run = max(self.longest_run, unit["longest_run"])
         self.most_nonblank = max(self.most_nonblank, unit["most_nonblank"])
+
+
+def _add_into(total: dict, more: dict) -> dict:
+    """Add the weights of `more` into `total`, key by key."""
+    for k, w in more.items():
+        total[k] = total.get(k, 0) + w
+    return total
 
 
 def _add_lists(a: list, b: list) -> list:
@@ -417,9 +420,7 @@ def add_groups(sources) -> dict:
     total: dict = {}
     for source in sources:
         for shape, g in source.items():
-            dst = total.setdefault(shape, {})
-            for k, c in g.items():
-                dst[k] = dst.get(k, 0) + c
+            _add_into(total.setdefault(shape, {}), g)
     return {s: dict(sorted(total[s].items())) for s in sorted(total)}
 
 
@@ -445,9 +446,7 @@ def _summed_proofs(tallies: list) -> dict:
     proofs: dict = {}
     by_size: dict = {}
     for t in tallies:
-        for name, w in t.proofs.items():
-            proofs[name] = proofs.get(name, 0) + w
-        for size, w in t.undecided_by_size.items():
-            by_size[size] = by_size.get(size, 0) + w
+        _add_into(proofs, t.proofs)
+        _add_into(by_size, t.undecided_by_size)
     return dict(proofs=proofs, undecided_by_size=dict(sorted(by_size.items())),
                 undecided_nodes=sum(t.undecided_nodes for t in tallies), step_bound=tallies[0].step_bound)

@@ -56,7 +56,6 @@ ctm_cps_ws *ctm_cps_ws_new(void);
 void ctm_cps_ws_free(ctm_cps_ws *ws);
 int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts);
 int ctm_cps_attempts(void);
-int ctm_cps_set_plan(const int *plan, int count); /* {n, k, log2 limit} triples */
 
 const char *ctm_strerror(int code);
 

@@ -287,26 +287,13 @@ static int cps_once(ctm_cps_ws *ws, const ctm_machine *mc, int n, int k, size_t 
 /* The CPS schedule: cheap plain windows first, then short windows with history,
  * ordered by what each proves per unit of work on the 1D (5,2) holdouts.
  * {window n, history k, log2 of the abstract configurations allowed} */
-#define CPS_PLAN_MAX 32
-static int cps_plan[CPS_PLAN_MAX][3] = {
+static const int cps_plan[][3] = {
     {1, 0, 9}, {2, 0, 10}, {3, 0, 11}, {2, 1, 11}, {2, 2, 11}, {2, 3, 12}, {3, 2, 12}, {2, 4, 12},
 };
-static int cps_plan_len = 8;
-
-/* Replace the schedule (for measurements): every entry needs 1 <= n <= 16, k >= 0, 4 <= log2 <= 20. */
-int ctm_cps_set_plan(const int *plan, int count) {
-    if (count < 1 || count > CPS_PLAN_MAX) return CTM_EINVAL;
-    for (int i = 0; i < count; i++)
-        if (plan[3 * i] < 1 || plan[3 * i] > 16 || plan[3 * i + 1] < 0 || plan[3 * i + 2] < 4 || plan[3 * i + 2] > 20)
-            return CTM_EINVAL;
-    for (int i = 0; i < count; i++)
-        for (int j = 0; j < 3; j++) cps_plan[i][j] = plan[3 * i + j];
-    cps_plan_len = count;
-    return CTM_OK;
-}
+#define CPS_PLAN_LEN ((int)(sizeof cps_plan / sizeof cps_plan[0]))
 
 int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts) {
-    const int np = cps_plan_len;
+    const int np = CPS_PLAN_LEN;
     if (mc->n < 1 || mc->m < 2 || mc->n * mc->m > CTM_MAX_ENTRIES) return CTM_EINVAL;
     for (int e = 0; e < mc->n * mc->m; e++)
         if (mc->def[e] == 1 && (mc->wr[e] >= mc->m || mc->nx[e] >= mc->n || mc->mv[e] > 1)) return CTM_EINVAL;
@@ -322,4 +309,4 @@ int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts) {
     return found;
 }
 
-int ctm_cps_attempts(void) { return cps_plan_len; }
+int ctm_cps_attempts(void) { return CPS_PLAN_LEN; }
