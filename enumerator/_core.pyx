@@ -66,6 +66,7 @@ cdef extern from "csrc/ctm_core.h" nogil:
         pass
     ctm_cps_ws *ctm_cps_ws_new()
     int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts)
+    int ctm_cps1d_plan(ctm_cps_ws *ws, const ctm_machine *mc, const int (*plan)[3], int len)
     int ctm_cps_attempts()
     ctypedef struct ctm_run_result:
         int status
@@ -161,8 +162,10 @@ cdef dict _result(ctm_unit *u, int64_t cap):
         halting=_int(&u.halting),
         non_halting=_int(&u.non_halting),
         undecided=_int(&u.undecided),
-        hist_steps=_hist(u.hist_steps, cap + 1),
-        hist_len=_hist(u.hist_len, cap + 2),
+        # no entry lies past the longest run (an output has at most steps + 1 cells): a cap of
+        # millions of steps leaves megabytes of untouched zeros that are not worth scanning
+        hist_steps=_hist(u.hist_steps, min(cap + 1, u.longest_run + 1)),
+        hist_len=_hist(u.hist_len, min(cap + 2, u.longest_run + 2)),
         halting_nodes=int(u.halting_nodes),
         undecided_nodes=int(u.undecided_nodes),
         longest_run=int(u.longest_run),
@@ -287,11 +290,13 @@ cdef ctm_cps_ws *_ws() except NULL:
 
 
 def cps_prove(int n, int m, const int8_t[:] defined, const uint8_t[:] wr, const int8_t[:] mv,
-              const uint8_t[:] nx, int attempts=-1):
+              const uint8_t[:] nx, int attempts=-1, plan=None):
     """n-gram CPS on one partial 1D machine (defined[e] 1 = MOVE, mv 0 = R, 1 = L):
-    the 1-based attempt of the schedule that proved non-halting, or 0."""
+    the 1-based attempt of the schedule that proved non-halting, or 0. plan: a schedule of
+    (window n, history k, log2 of the configurations allowed) instead of the build's."""
     cdef ctm_machine mc
-    cdef int rc
+    cdef int rc, i
+    cdef int steps[64][3]
     if n < 1 or m < 2 or n * m > CTM_MAX_ENTRIES:
         raise ValueError("a machine needs 1 or more states, 2 or more symbols, and at most 64 entries")
     if defined.shape[0] != n * m or wr.shape[0] != n * m or mv.shape[0] != n * m or nx.shape[0] != n * m:
@@ -303,7 +308,14 @@ def cps_prove(int n, int m, const int8_t[:] defined, const uint8_t[:] wr, const 
     mc.mv = &mv[0]
     mc.nx = &nx[0]
     cdef ctm_cps_ws *ws = _ws()
-    rc = ctm_cps1d(ws, &mc, attempts if attempts >= 0 else ctm_cps_attempts())
+    if plan is not None:
+        if len(plan) > 64:
+            raise ValueError("a CPS schedule has at most 64 attempts")
+        for i in range(len(plan)):
+            steps[i][0], steps[i][1], steps[i][2] = plan[i]
+        rc = ctm_cps1d_plan(ws, &mc, steps, len(plan))
+    else:
+        rc = ctm_cps1d(ws, &mc, attempts if attempts >= 0 else ctm_cps_attempts())
     if rc < 0:
         _check(rc)
     return rc

@@ -13,6 +13,9 @@ DECIDERS = {
     "ngram-cps": 16,         # n-gram closed position set, after the cap (1D)
 }
 ALL_DECIDERS = tuple(DECIDERS)
+# Not a decider but a search option beside their bits (CTM_SEARCH_RELABEL): exhaustive searches
+# with m >= 3 symbols write the non-blank ones in first-use order, about (m-1)! times fewer nodes.
+SEARCH_RELABEL = 256
 STEP_BOUND = "step-bound"    # not a decider: the proven busy-beaver bound (enumerator/bounds.py)
 # Exhaustive builds run the CPS only from this cap on: it is tried once per node, at step 128
 # (enumerator/_core.pyx CPS_AT) or at the cap, and shorter caps leave mostly runs cut short.

@@ -15,8 +15,7 @@ from .space import Space, check_cap
 from .spool import Spool, kept
 from .tally import Partial, Tally, images_per_sample, relative_sample_errors, sample_sums, size_of
 from .units import Plan, default_depth, make_plan, unit_weight_ok
-from .bounds import bound_reached
-from .deciders import ALL_DECIDERS, CPS_MIN_CAP, DECIDERS
+from .deciders import ALL_DECIDERS, CPS_MIN_CAP, DECIDERS, SEARCH_RELABEL
 
 # Cost model of the estimate, single-core seconds, fitted to builds on this project's machine:
 # 1D to the (4,2) and (5,2) figures of README.md (Performance); 2D to (3,2) and (2,3) at caps
@@ -42,13 +41,18 @@ def decider_bits(names) -> int:
     return bits
 
 
-def search_bits(space: Space, cap: int, deciders) -> int:
-    """The decider bits an exhaustive search runs with. The CPS is 1D only. At a cap at or past
-    a proven busy-beaver bound every undecided node is proven by the bound, and below CPS_MIN_CAP
-    most undecided runs are only cut short (they branch soon after): the CPS would only cost time."""
+def search_bits(space: Space, cap: int, deciders, relabel: bool = True) -> int:
+    """The decider bits an exhaustive search runs with. The CPS is 1D only, and below CPS_MIN_CAP
+    most undecided runs are only cut short (they branch soon after): it would only cost time. At
+    a cap at or past a proven busy-beaver bound the bound proves every undecided node, but the
+    CPS still saves running most of them to the cap.
+    relabel: with 3 or more symbols, write the non-blank ones in first-use order (the counts
+    are the same either way; False is for tests and benchmarks)."""
     bits = decider_bits(deciders)
-    if space.dims == 2 or bound_reached(space, cap) is not None or cap < CPS_MIN_CAP:
+    if space.dims == 2 or cap < CPS_MIN_CAP:
         bits &= ~DECIDERS["ngram-cps"]
+    if relabel and space.symbols >= 3:
+        bits |= SEARCH_RELABEL
     return bits
 
 
@@ -90,23 +94,23 @@ def _prepare(space: Space, cap: int) -> None:
     space.check_countable()
 
 
-def plan(space: Space, cap: int, depth: int | None = None, deciders=ALL_DECIDERS) -> Plan:
+def plan(space: Space, cap: int, depth: int | None = None, deciders=ALL_DECIDERS, relabel: bool = True) -> Plan:
     """The deterministic unit list of a build (top of the tree run exactly)."""
     _prepare(space, cap)
     depth = default_depth(space) if depth is None else depth
-    return make_plan(space, cap, depth, search_bits(space, cap, deciders), tuple(deciders))
+    return make_plan(space, cap, depth, search_bits(space, cap, deciders, relabel), tuple(deciders))
 
 
 def estimate(space: Space, cap: int, deciders=ALL_DECIDERS, walks: int = 20_000, seed: int = 1,
-             at: Plan | None = None, enough: float | None = None) -> Estimate:
+             at: Plan | None = None, enough: float | None = None, relabel: bool = True) -> Estimate:
     """Cost of an exhaustive build: the top of the tree exactly, then Knuth's
     random-walk estimate (Math. Comp. 29, 1975) inside every unit, which keeps
     the variance far below that of walks from the root. `at`: a plan at the
     default depth already made, so it is not made twice. `enough`: seconds below
     which a pilot over PILOT_UNITS evenly spaced units will do, when probing every
     unit would itself cost much (2D: each probe sets up the whole grid)."""
-    p = at if at is not None else plan(space, cap, None, deciders)
-    bits = search_bits(space, cap, deciders)
+    p = at if at is not None else plan(space, cap, None, deciders, relabel)
+    bits = p.bits
     per_unit = max(4, walks // max(1, len(p.units)))
     cells = _grid_cells(space, cap)
 
@@ -144,6 +148,7 @@ def build(
     budget_hours: float | None = DEFAULT_BUDGET_HOURS,
     on_progress=None,
     holdouts: bool = False,
+    relabel: bool = True,
 ) -> Tally:
     """Enumerate every machine of the space under cap; return the exact tally.
 
@@ -153,7 +158,8 @@ def build(
     finished units are kept, so a killed build resumes. The tally is the same for
     every split, executor, shard merge and resume. on_progress(done, total,
     weight_done, weight_total, steps) is called as units finish. holdouts keeps
-    every undecided node in tally.holdouts (enumerator/holdouts.py renders them)."""
+    every undecided node in tally.holdouts (enumerator/holdouts.py renders them). relabel=False
+    turns off the first-use symbol order (same counts, for tests and benchmarks)."""
     _prepare(space, cap)
     if budget_hours is not None and not (isinstance(budget_hours, (int, float)) and 0 < budget_hours < math.inf):
         raise SpaceError(f"the budget must be a positive number of CPU-hours, got {budget_hours!r}; "
@@ -167,11 +173,12 @@ def build(
     t0 = time.perf_counter()
     # The default-depth plan is cheap and serves the estimate too; another depth (0 runs the
     # whole tree as its top) is planned only after the estimate has let the build through.
-    p = plan(space, cap, None, deciders) if split_depth in (None, default_depth(space)) else None
+    p = plan(space, cap, None, deciders, relabel) if split_depth in (None, default_depth(space)) else None
     if budget_hours is not None:
         share = 1 if shard is None else shard[1]
         # a pilot estimate decides when it is far below the budget (a factor 4 of room)
-        est = estimate(space, cap, deciders, at=p, enough=min(600.0, budget_hours * 3600 / 4) * share)
+        est = estimate(space, cap, deciders, at=p, enough=min(600.0, budget_hours * 3600 / 4) * share,
+                       relabel=relabel)
         if est.seconds / share > budget_hours * 3600:
             raise TooLargeError(
                 f"an exhaustive {space.label} build at cap {cap} is estimated at "
@@ -179,7 +186,7 @@ def build(
                 "lower --max-steps, use fewer states or symbols, split it with --shard, or raise --budget-hours"
             )
     if p is None:
-        p = plan(space, cap, split_depth, deciders)
+        p = plan(space, cap, split_depth, deciders, relabel)
     chosen = p.select(shard)
     store = _exhaustive_spool(spool, p, chosen) if spool else None
     results = store.finished() if store else {}
@@ -203,7 +210,7 @@ def build(
 
     for index, result in sorted(results.items()):
         accept(index, result)
-    bits = search_bits(space, cap, deciders)
+    bits = p.bits
     if 0 in chosen and 0 not in results:  # the plan computed the top already: never spooled
         top = p.top
         if holdouts and top["undecided_nodes"]:  # the plan's top run kept no holdouts
@@ -220,7 +227,7 @@ def build(
     tally = Tally.from_partial(
         space, cap, part, deciders=tuple(deciders), units=p.count,
         covered=None if shard is None else chosen, weight=weight_total,
-        plan_ident=p.ident, depth=p.depth, shard=shard,
+        plan_ident=p.ident, depth=p.depth, shard=shard, relabelled=bool(p.bits & SEARCH_RELABEL),
     )
     tally.seconds = time.perf_counter() - t0
     tally.resumed = resumed

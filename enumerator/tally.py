@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import functools
 import itertools
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -38,12 +39,12 @@ class Partial:
         for name in ("halting", "non_halting", "undecided", "halting_nodes", "steps"):
             setattr(self, name, getattr(self, name) + unit[name])
         self.undecided_nodes += unit.get("undecided_nodes", 0)
-        self.proven = _add_lists(self.proven, unit.get("proven", []))
+        _add_lists(self.proven, unit.get("proven", []))
         _add_into(self.undecided_by_size, unit.get("undecided_by_size", {}))
         if unit.get("holdouts"):
             self.holdouts.append(unit["holdouts"])
-        self.hist_steps = _add_lists(self.hist_steps, unit["hist_steps"])
-        self.hist_len = _add_lists(self.hist_len, unit["hist_len"])
+        _add_lists(self.hist_steps, unit["hist_steps"])
+        _add_lists(self.hist_len, unit["hist_len"])
         self.longest_run = max(self.longest_run, unit["longest_run"])
         self.most_nonblank = max(self.most_nonblank, unit["most_nonblank"])
 
@@ -56,12 +57,14 @@ def _add_into(total: dict, more: dict) -> dict:
 
 
 def _add_lists(a: list, b: list) -> list:
+    """Add b into a in place, entry by entry, a growing as needed: O(len(b)), so that a run of
+    millions of steps in one unit costs its own histogram once, not once per unit."""
     if len(a) < len(b):
-        a, b = b, a
-    out = list(a)
+        a.extend([0] * (len(b) - len(a)))
     for i, v in enumerate(b):
-        out[i] += v
-    return out
+        if v:
+            a[i] += v
+    return a
 
 
 def _trim(hist: list) -> list:
@@ -98,31 +101,82 @@ def blank_perms(m: int) -> list[np.ndarray]:
     return perms
 
 
-def _expand_2d(raw: dict, m: int) -> dict:
-    """flag, rows, cols, cells -> {image bytes (with its shape): count}, blank swaps included."""
-    by_class: dict = {}
+def split_flag(flag: int) -> tuple[int, int]:
+    """A raw key's flag byte: (symmetry class, non-blank symbols in use). The second is 0 unless
+    the search wrote the non-blank symbols in first-use order (CTM_SEARCH_RELABEL)."""
+    return flag & 3, flag >> 2
+
+
+@functools.lru_cache(maxsize=None)
+def symbol_maps(m: int, used: int) -> tuple:
+    """The symbol maps that expand one raw output whose non-blank symbols are 1..used in
+    first-use order: every injection of them into 1..m-1 (the others never occur), then every
+    blank swap; as bytes.translate tables. (m-1)!/(m-1-used)! injections share the weight."""
+    maps = []
+    for inj in itertools.permutations(range(1, m), used):
+        first = np.arange(m, dtype=np.uint8)
+        first[1:used + 1] = inj
+        for swap in blank_perms(m):
+            maps.append(swap[first])
+    return tuple(perm.tobytes() + bytes(range(m, 256)) for perm in maps), math.perm(m - 1, used)
+
+
+def _share(weight: int, images: int, used: int) -> int:
+    """A raw weight split equally over its relabellings; it must divide (a bug otherwise)."""
+    share, rest = divmod(weight, images)
+    if rest:
+        raise InvariantError(f"a raw weight {weight} with {used} symbols in use does not split over its "
+                             f"{images} relabellings; this is a bug, please report it")
+    return share
+
+
+def expand_raw(space: Space, raw: dict) -> dict:
+    """Exhaustive raw outputs (flag byte + symbols -> weight on blank 0) -> shape -> {key: count}
+    over every run: mirror (1D) or dihedral (2D) images of the output's class, times its symbol
+    maps. Vectorised: one sort per output shape; sorted by shape, then key."""
+    m = space.symbols
+    by_kind: dict = {}
     for key, w in raw.items():
-        rows, cols = key[1] | key[2] << 8, key[3] | key[4] << 8
-        by_class.setdefault((key[0], rows, cols), []).append((key[5:], w))
-    flat: dict = {}
-    perms = blank_perms(m)
-    for (cls, rows, cols), items in by_class.items():
-        grids = np.frombuffer(b"".join(k for k, _ in items), dtype=np.uint8).reshape(len(items), rows, cols)
-        weights = [w for _, w in items]
-        for img in dihedral_images(grids, cls):
-            shape = img.shape[1:]
-            for perm in perms:
-                keys = np.ascontiguousarray(perm[img]).reshape(len(items), -1)
-                for k, w in zip(map(bytes, keys), weights):
-                    slot = (shape, k)
-                    flat[slot] = flat.get(slot, 0) + w
-    return flat
-
-
-def blank_swaps(m: int) -> list[bytes]:
-    """The same transpositions as bytes.translate tables."""
-    rest = bytes(range(m, 256))
-    return [perm.tobytes() + rest for perm in blank_perms(m)]
+        cls, used = split_flag(key[0])
+        if space.dims == 1:
+            shape, cells = (len(key) - 1,), key[1:]
+        else:
+            shape, cells = (key[1] | key[2] << 8, key[3] | key[4] << 8), key[5:]
+        bodies, ws = by_kind.setdefault((cls, used, shape), ([], []))
+        bodies.append(cells)
+        ws.append(w)
+    # every count is at most blanks x halting <= m x the space size: int64 sums while that fits
+    wide = m * space.size >= 1 << 62
+    images: dict = {}  # image shape -> [(rows, weight per row)]
+    for (cls, used, shape), (bodies, ws) in by_kind.items():
+        k = len(bodies)
+        grids = np.frombuffer(b"".join(bodies), dtype=np.uint8).reshape(k, *shape)
+        if used and int(grids.max()) > used:
+            raise InvariantError(f"a raw output uses a symbol past the {used} in use; this is a bug")
+        tables, count = symbol_maps(m, used)
+        shares = np.array([_share(w, count, used) for w in ws], dtype=object if wide else np.int64)
+        if space.dims == 1:
+            imgs = [grids, grids[:, ::-1]] if cls else [grids]
+        else:
+            imgs = dihedral_images(grids, cls)
+        for img in imgs:
+            flat = img.reshape(k, -1)
+            for table in tables:
+                images.setdefault(tuple(img.shape[1:]), []).append((np.frombuffer(table[:m], np.uint8)[flat], shares))
+    out = {}
+    for shape in sorted(images):
+        parts = images.pop(shape)  # one shape's images at a time
+        rows = np.ascontiguousarray(np.concatenate([r for r, _ in parts]))
+        weights = np.concatenate([w for _, w in parts])
+        del parts
+        keys, inverse = np.unique(rows.view(np.dtype((np.void, rows.shape[1]))).ravel(), return_inverse=True)
+        del rows
+        order = np.argsort(inverse.reshape(-1), kind="stable")
+        ids = inverse.reshape(-1)[order]
+        starts = np.flatnonzero(np.r_[True, ids[1:] != ids[:-1]])
+        sums = np.add.reduceat(weights[order], starts)
+        out[shape] = dict(zip(map(bytes, keys), map(int, sums)))
+    return out
 
 
 FULL_RELABELLING_MAX = 5  # sampled outputs take all m! symbol permutations up to m = 5 (120)
@@ -256,6 +310,7 @@ class Tally:
     undecided_nodes: int = 0     # tree nodes left undecided
     step_bound: tuple | None = None  # (S, source) when cap >= a proven busy-beaver bound
     holdouts: list = field(default_factory=list, repr=False)  # packed undecided nodes, if kept
+    relabelled: bool = False     # exhaustive, m >= 3: the search wrote symbols in first-use order
 
     def __post_init__(self):
         if self.weight is None:
@@ -303,22 +358,8 @@ class Tally:
 
     @classmethod
     def from_partial(cls, space: Space, cap: int, part: Partial, **extra) -> "Tally":
-        """Expand mirror images and blank relabellings, then check every invariant."""
-        if space.dims == 1:
-            swaps = blank_swaps(space.symbols)
-            flat: dict = {}
-            for key, w in part.raw.items():
-                out = key[1:]
-                images = (out, out[::-1]) if key[0] else (out,)
-                for img in images:
-                    for table in swaps:
-                        k = ((len(img),), img.translate(table))
-                        flat[k] = flat.get(k, 0) + w
-        else:
-            flat = _expand_2d(part.raw, space.symbols)
-        groups: dict = {}
-        for shape, k in sorted(flat):
-            groups.setdefault(shape, {})[k] = flat[(shape, k)]
+        """Expand mirror images and symbol relabellings, then check every invariant."""
+        groups = expand_raw(space, part.raw)
         tally = cls(
             space=space,
             cap=cap,
@@ -432,7 +473,7 @@ def summed(tallies: list) -> dict:
         space=first.space, cap=first.cap, groups=add_groups(t.groups for t in tallies),
         halting=sum(t.halting for t in tallies), non_halting=sum(t.non_halting for t in tallies),
         undecided=sum(t.undecided for t in tallies), halting_nodes=sum(t.halting_nodes for t in tallies),
-        steps_hist=_trim(functools.reduce(_add_lists, (t.steps_hist for t in tallies), [])),
+        steps_hist=_trim(functools.reduce(_add_lists, (t.steps_hist for t in tallies), [])),  # a fresh list
         length_hist=_trim(functools.reduce(_add_lists, (t.length_hist for t in tallies), [])),
         longest_run=max(t.longest_run for t in tallies), most_nonblank=max(t.most_nonblank for t in tallies),
         steps=sum(t.steps for t in tallies), **_summed_proofs(tallies),

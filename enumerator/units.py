@@ -9,6 +9,7 @@ from dataclasses import dataclass
 import msgpack
 
 from ..errors import SpaceError
+from .deciders import SEARCH_RELABEL
 from .native import core as _core
 from .space import Space
 
@@ -18,8 +19,10 @@ TOP = 0
 
 def default_depth(space: Space) -> int:
     """Cut depth used when none is given: a function of the space only, so that
-    every worker count, shard split and resume sees the same units."""
-    return max(0, min(4, space.entries - 1))
+    every worker count, shard split and resume sees the same units. With 3 or more symbols the
+    first-use symbol order makes each unit several times larger, so one level less keeps the
+    per-unit overhead small (1D (2,3), (2,4), (3,3) all build faster at 3 than at 4)."""
+    return max(0, min(4 if space.symbols == 2 else 3, space.entries - 1))
 
 
 @dataclass(frozen=True)
@@ -41,6 +44,7 @@ class Plan:
     depth: int
     top: dict
     units: list  # Unit 1..N
+    bits: int = 0  # the core's decider and search-option bits
 
     @property
     def count(self) -> int:
@@ -50,8 +54,10 @@ class Plan:
     @property
     def ident(self) -> str:
         """Fingerprint of the build: space, cap, deciders and the unit list."""
-        h = hashlib.sha256(json.dumps([self.space.to_dict(), self.cap, sorted(self.deciders), self.depth],
-                                      sort_keys=True).encode())
+        what = [self.space.to_dict(), self.cap, sorted(self.deciders), self.depth]
+        if self.bits & SEARCH_RELABEL:  # other unit prefixes; binary plans keep their old idents
+            what.append("relabel")
+        h = hashlib.sha256(json.dumps(what, sort_keys=True).encode())
         for u in self.units:
             h.update(repr(u.prefix).encode())
         return h.hexdigest()[:24]
@@ -75,7 +81,7 @@ def make_plan(space: Space, cap: int, depth: int, bits: int, deciders: tuple) ->
     top = _core.run_unit(space.dims, space.states, space.symbols, cap, bits, (), depth if depth > 0 else -1)
     cuts = top.pop("cuts")
     units = [Unit(i + 1, tuple(p), w) for i, (p, w) in enumerate(cuts)]
-    return Plan(space, cap, tuple(deciders), depth, top, units)
+    return Plan(space, cap, tuple(deciders), depth, top, units, bits)
 
 
 def unit_weight_ok(result: dict, weight: int) -> bool:

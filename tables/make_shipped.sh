@@ -14,6 +14,14 @@ for n in 1 2 3; do
     ctmtab build --dims 2 --states "$n" --symbols 2 --max-steps 2000 -o "tables/2d-n$n-m2-t2000.ctmt" \
         --builder "ctmtab project" --notes "$(note "2000, as in the published 2D (4,2) table")" -q
 done
+# Exact: at S(2,4) = 3,932,964 every run left undecided is proven non-halting by the bound.
+ctmtab build --states 2 --symbols 4 --max-steps 3932964 -o tables/1d-n2-m4-t3932964-exact.ctmt \
+    --builder "ctmtab project" --notes "$(note "S(2,4) = 3,932,964, the busy beaver value: exact")" -q
+# Caps chosen from the undecided weight and the widest interval by size against the cap (README).
+ctmtab build --states 3 --symbols 3 --max-steps 10000 -o tables/1d-n3-m3-t10000.ctmt \
+    --builder "ctmtab project" --notes "$(note "10000, where longer caps stop narrowing the intervals")" -q
+ctmtab build --dims 2 --states 2 --symbols 3 --max-steps 2000 -o tables/2d-n2-m3-t2000.ctmt \
+    --builder "ctmtab project" --notes "$(note "2000, as for the binary 2D tables")" -q
 ctmtab build --states 5 --symbols 2 --max-steps 500 -o tables/1d-n5-m2-t500.ctmt \
     --builder "ctmtab project" --notes "$(note "500, as in the published (5,2) table")" -q
 ctmtab build --dims 2 --states 4 --symbols 2 --max-steps 2000 -o tables/2d-n4-m2-t2000.ctmt \

@@ -56,15 +56,16 @@ def _int_total(header: dict, name: str) -> int:
     return int(value)
 
 
-def symmetries(space: Space, mode: str) -> list[str]:
+def symmetries(space: Space, mode: str, relabelled: bool = False) -> list[str]:
     """The symmetries behind the counts, as the header lists them. Exhaustive builds search one
-    machine per class and weight it: mirror (1D) or dihedral (2D), blank swaps, state relabelling.
+    machine per class and weight it: mirror (1D) or dihedral (2D), blank swaps, state relabelling,
+    and with 3 or more symbols the first-use order of the non-blank symbols (relabelled).
     Sampled builds draw plain machines and add each output's images: mirror or dihedral, and the
     symbol maps of tally.sample_perms (all m! permutations, or the m blank swaps)."""
     shape = "mirror" if space.dims == 1 else "dihedral"
     if mode == "sampled":
         return [shape, "symbol-permutation" if relabelling(space.symbols) == "all" else "blank-swap"]
-    return [shape, "blank-swap", "state-relabelling"]
+    return [shape, "blank-swap", "state-relabelling"] + (["symbol-relabelling"] if relabelled else [])
 
 
 class Table:
@@ -158,7 +159,7 @@ class Table:
                 "undecided": str(tally.undecided),
             },
             "invariant": "halting + non_halting + undecided = space_size; counts sum to blanks x halting",
-            "symmetries": symmetries(tally.space, tally.mode),
+            "symmetries": symmetries(tally.space, tally.mode, tally.relabelled),
             "deciders": list(tally.deciders),
             "stats": {
                 "halting_nodes": tally.halting_nodes,
@@ -227,6 +228,7 @@ class Table:
             covered=None if covered == "all" else list(covered),
             weight=int(units.get("weight", self.space_size)), plan_ident=units.get("plan", ""),
             depth=units.get("depth", 0), shard=None if shard is None else tuple(shard), **sampled,
+            relabelled="symbol-relabelling" in self.header.get("symmetries", []),
             **self._certificate_fields(),
         )
 

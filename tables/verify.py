@@ -83,8 +83,10 @@ def _images(table: Table, shape: tuple, rows: np.ndarray):
     sample = table.header.get("sample") or {}
     if table.mode == "sampled" and m > 2 and sample.get("relabelling") != "all":
         return  # each sample took the transpositions only: closed in expectation, not exactly
+    # the transpositions (0 b) generate every permutation of the m symbols: closed under them,
+    # the counts are closed under all m! relabellings (common practice, group theory)
     for b, perm in enumerate(blank_perms(m)[1:], start=1):
-        yield f"blank swap (0 {b})", shape, perm[rows]
+        yield f"symbol swap (0 {b})", shape, perm[rows]
 
 
 def _closure(table: Table, shape: tuple) -> list[str]:

@@ -20,6 +20,11 @@ CAPS = {
     (2, 1, 2): (1, 4, 10),
     (2, 2, 2): (4, 7, 10),
     (2, 1, 3): (5, 10),
+    # 4 and 5 symbols: one state only halts at its first entry, but the symbol maps that expand the
+    # first-use order (m >= 3) are checked against every write and blank; (1, 2, 3) is the deep case
+    (1, 1, 4): (2, 8),
+    (1, 1, 5): (3, 8),
+    (2, 1, 4): (3, 10),
 }
 HEAVY = {(1, 2, 3)}  # 11,390,625 machines x 3 blanks x 38 steps: the CI lane (.ci/run)
 

@@ -76,6 +76,8 @@ def test_cps_proves_machines_that_never_halt(machine):
                                             # reaches it at step 47,176,870 (arXiv:2509.12337)
     "1RB---_0LA---",                        # needs its undefined entry at step 3
     "1RB2LA1RA1RA_1LB1LA3RB---",            # the (2,4) champion, halt undefined (arXiv:2509.12337)
+    "0RB2LA1RA_1LA2RB1RC_---1LB1LC",        # the (3,3) champion, halt undefined: it halts after
+                                            # about 1.19 x 10^17 steps (memory, the S(3,3) lower bound)
 ])
 def test_cps_never_proves_a_machine_that_halts(machine):
     assert cps(machine) == 0

@@ -211,10 +211,11 @@ def test_header_symmetries_match_the_space_and_the_counts():
 
     # (table, expected list, the image maps each named symmetry promises); DEVELOPERS.md
     # "How the search works" and "Sampling": exhaustive searches count mirror/dihedral classes,
-    # blank swaps and unused states once; sampled builds add each output's images instead
+    # blank swaps, unused states and (m >= 3) unused symbols once; sampled builds add each
+    # output's images instead
     cases = [
-        (build(Space(1, 2, 3), 12, budget_hours=None, workers=1), ["mirror", "blank-swap", "state-relabelling"],
-         [mirror, perms(3, False)]),
+        (build(Space(1, 2, 3), 12, budget_hours=None, workers=1),
+         ["mirror", "blank-swap", "state-relabelling", "symbol-relabelling"], [mirror, perms(3, True)]),
         (build(Space(2, 2, 2), 20, budget_hours=None, workers=1), ["dihedral", "blank-swap", "state-relabelling"],
          [dihedral, perms(2, False)]),
         (sample(Space(1, 2, 3), 12, 25_000, seed=3, workers=1), ["mirror", "symbol-permutation"],

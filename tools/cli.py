@@ -14,6 +14,7 @@ import time
 from pathlib import Path
 
 from .._version import __version__
+from ..enumerator.deciders import DECIDERS
 from ..errors import CtmtabError, RareKeyWarning
 
 DEFAULT_MIN_SEEN = 10  # the reader's default too (tables.table.DEFAULT_MIN_SEEN)
@@ -77,7 +78,7 @@ def _parser() -> argparse.ArgumentParser:
     _space_args(p)
     p.add_argument("-o", "--output", help="table file to write; default ctm-<space>-t<cap>.ctmt")
     p.add_argument("--deciders", default="all",
-                   help="comma list of non-halting proofs: full-table, escapee, cycler, translated-cycler; 'all' or 'none'")
+                   help="comma list of non-halting proofs: " + ", ".join(DECIDERS) + "; 'all' or 'none'")
     p.add_argument("--workers", type=int, default=None, help="local processes; default every core")
     p.add_argument("--scheduler", metavar="ADDRESS", help="run the units on a Dask cluster (tcp://host:8786)")
     p.add_argument("--shard", metavar="I/N", help="build only units I mod N into a shard file (merge them later)")
@@ -362,8 +363,10 @@ def cmd_build(a) -> int:
         if base is not None:
             added = (f"; the table now holds {table.header['sample']['size']:,} samples, {table.distinct:,} outputs, "
                      f"undecided {table.undecided / table.header['sample']['size']:.3%}")
+        left = ("exact (every run left at the cap proven by the step bound)" if tally.step_bound
+                else f"undecided {tally.undecided / tally.weight:.3%}")
         print(f"{space.label} cap {cap}:{part} {tally.weight:,} {what}, {tally.distinct():,} outputs, "
-              f"undecided {tally.undecided / tally.weight:.3%}{stop}{added}, {time.perf_counter() - t0:.2f} s{again} "
+              f"{left}{stop}{added}, {time.perf_counter() - t0:.2f} s{again} "
               f"-> {output}", file=sys.stderr)
     return 0
 
@@ -387,7 +390,8 @@ def cmd_info(a) -> int:
         f"  CTM        {s['ctm_min']:.4f} to {s['ctm_max']:.4f} bits" if t.total
         else "  CTM        none: no run halted",
         f"  longest    {s['stats'].get('longest_run', '?')} steps, {s['stats'].get('most_nonblank', '?')} non-blank cells",
-        f"  built      {s['build'].get('created', '?')} by {s['build'].get('by', '?')} in {s['build'].get('seconds', '?')} s",
+        f"  built      {s['build'].get('created', '?')}"
+        + (f" by {s['build']['by']}" if s["build"].get("by") else "") + f" in {s['build'].get('seconds', '?')} s",
         f"  command    {s['build'].get('command', '')}",
         f"  generator  {s['generator'].get('name', '?')} {s['generator'].get('version', '?')}, format {s['format'][0]}.{s['format'][1]}",
     ]

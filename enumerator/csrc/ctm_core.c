@@ -5,7 +5,10 @@
  * number of unused states each time a move into the lowest unused state stands
  * for all of them, times the symmetry factor of its class (u->factor[u->sym]):
  * 1D 2 under the first move R (mirror images); 2D 4 under the first move E
- * (rotations) and 8 under the first vertical move N (and the N-S flip). */
+ * (rotations) and 8 under the first vertical move N (and the N-S flip).
+ * With CTM_SEARCH_RELABEL a write of the lowest unused non-blank symbol stands
+ * for every unused one too, as new states do; the tally splits the weight over
+ * the injections of the symbols in use. */
 #include "ctm_core.h"
 
 #include <stdlib.h>
@@ -46,10 +49,12 @@ int ctm_unit_init(ctm_unit *u) {
     if (u->dims != 1 && u->dims != 2) return CTM_EINVAL;
     if (u->n < 1 || u->m < 2 || u->cap < 1 || u->n * u->m > CTM_MAX_ENTRIES || u->m > 255)
         return CTM_EINVAL;
+    if ((u->deciders & CTM_SEARCH_RELABEL) && u->m > 64) return CTM_EINVAL; /* usym fits 6 bits */
     if (u->dims == 2 && u->cap > CTM_MAX_CAP_2D) return CTM_EINVAL;
     if (u->prefix_len < 0 || u->prefix_len > u->n * u->m) return CTM_EINVAL;
     u->nent = u->n * u->m;
     u->used = 1;
+    u->usym = 0;
     u->ndef = 0;
     u->sym = 0;
     memset(u->def, 0, sizeof u->def);
@@ -289,17 +294,27 @@ static void tally_halt(ctm_unit *u, const config *c, ctm_count total, int64_t no
     if (nonblank > u->most_nonblank) u->most_nonblank = nonblank;
 }
 
-/* The m HALT(write) leaves of a branch point. */
+/* The HALT(write) leaves of a branch point: m of them, or under the
+ * relabelling the symbols in use and one new symbol standing for the rest. */
 static int halt_leaves(ctm_unit *u, const config *c) {
     size_t len, at;
     int64_t nonblank;
     u->halting_nodes++;
     ctm_count w = c->mult * u->pow_opts[u->nent - u->ndef - 1];
-    int rc = output_key(u, c, u->sym, &len, &at, &nonblank);
+    const int relabel = (u->deciders & CTM_SEARCH_RELABEL) != 0;
+    const int flag = u->sym | (relabel ? u->usym << 2 : 0);
+    int rc = output_key(u, c, flag, &len, &at, &nonblank);
     if (rc) return rc;
-    for (int s = 0; s < u->m; s++) {
+    const int writes = relabel && u->usym + 1 < u->m ? u->usym + 1 : u->m;
+    for (int s = 0; s < writes; s++) {
         u->scratch[at] = (uint8_t)s;
         rc = ctm_map_add(&u->raw, u->scratch, (uint32_t)len, w);
+        if (rc) return rc;
+    }
+    if (writes < u->m) { /* the new symbol usym + 1, for the m - 1 - usym unused ones */
+        u->scratch[0] = (uint8_t)(u->sym | (u->usym + 1) << 2);
+        u->scratch[at] = (uint8_t)(u->usym + 1);
+        rc = ctm_map_add(&u->raw, u->scratch, (uint32_t)len, w * (ctm_count)(u->m - 1 - u->usym));
         if (rc) return rc;
     }
     tally_halt(u, c, w * (ctm_count)u->m * u->factor[u->sym], nonblank + 1);
@@ -520,6 +535,7 @@ int ctm_unit_run(ctm_unit *u) {
                    u->origin_y, u->origin_y, 0, 1};
     root.head = cell(u, root.x, root.y);
     u->sym = 0;
+    u->usym = 0;
     return u->dims == 1 ? segment_1(u, root) : segment_2(u, root);
 }
 

@@ -7,7 +7,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define CTM_API_VERSION 2
+#define CTM_API_VERSION 3
 
 #define CTM_OK 0
 #define CTM_ENOMEM (-1)    /* an allocation failed */
@@ -31,7 +31,12 @@
 #define CTM_DEC_SHIFT 8u   /* translated cycler: a record configuration repeats shifted */
 #define CTM_DEC_CPS 16u    /* n-gram closed position set, after the cap (1D) */
 #define CTM_DEC_COUNT 5    /* proof kinds counted in ctm_unit.proven, one per bit above */
+/* A search option beside the decider bits: write the non-blank symbols in
+ * first-use order (relabelling them maps runs onto runs), the new one standing
+ * for every unused symbol. Raw keys then carry the symbols in use. */
+#define CTM_SEARCH_RELABEL 256u
 
+#define CTM_PROBE_RUN 65536 /* probe walks simulate at most this many steps per segment */
 #define CTM_REC_RING 32    /* records kept per side for the translated-cycler check */
 #define CTM_REC_WINDOW 64  /* cells kept behind each record */
 #define CTM_REC2_RING 32   /* 2D: records kept, all sides together */
@@ -55,6 +60,10 @@ typedef struct ctm_cps_ws ctm_cps_ws; /* reusable CPS workspace; NULL: one per c
 ctm_cps_ws *ctm_cps_ws_new(void);
 void ctm_cps_ws_free(ctm_cps_ws *ws);
 int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts);
+/* The same over a schedule of the caller's: plan[i] = {n, k, log2 limit}. */
+#define CTM_CPS_MAX_WINDOW 16
+#define CTM_CPS_MAX_LOG2 24
+int ctm_cps1d_plan(ctm_cps_ws *ws, const ctm_machine *mc, const int (*plan)[3], int len);
 int ctm_cps_attempts(void);
 
 const char *ctm_strerror(int code);
@@ -87,7 +96,7 @@ typedef struct {
     uint64_t probe_seed; /* != 0: one random root-to-leaf walk per call (Knuth estimate) */
 
     /* outputs: weights count machines on blank 0, mirror images included */
-    ctm_map raw;         /* key = mirrored flag byte + output symbols */
+    ctm_map raw;         /* key = flag byte (class | symbols in use << 2) + output symbols */
     ctm_count halting, non_halting, undecided;
     ctm_count proven[CTM_DEC_COUNT]; /* non-halting weight by the proof that gave it */
     ctm_map undec;       /* undecided weight by size at the cap: key uint32 rows, uint32 cols */
@@ -110,6 +119,7 @@ typedef struct {
 
     /* private state */
     int nent, used, ndef;
+    int usym;                    /* CTM_SEARCH_RELABEL: non-blank symbols written so far (1..usym) */
     int pow_overflow;            /* opts^nent passes 128 bits: sampling only */
     int sym;                     /* symmetry class of the path: 0 none yet, 1, 2 (2D) */
     ctm_count factor[3];         /* machines per class member: 1, 2 (1D) or 1, 4, 8 (2D) */

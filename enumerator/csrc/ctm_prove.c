@@ -236,7 +236,7 @@ static int cps_once(ctm_cps_ws *ws, const ctm_machine *mc, int n, int k, size_t 
         if (!a || !b || !c) return CTM_ENOMEM;
         ws->links_cap = limit;
     }
-    uint16_t cfg[2 * 16 + 2], nxt[2 * 16 + 2], gram[16];
+    uint16_t cfg[2 * CTM_CPS_MAX_WINDOW + 2], nxt[2 * CTM_CPS_MAX_WINDOW + 2], gram[CTM_CPS_MAX_WINDOW];
     memset(cfg, 0, sizeof cfg);
     memset(gram, 0, sizeof gram);
     int rc;
@@ -292,21 +292,27 @@ static const int cps_plan[][3] = {
 };
 #define CPS_PLAN_LEN ((int)(sizeof cps_plan / sizeof cps_plan[0]))
 
-int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts) {
-    const int np = CPS_PLAN_LEN;
+int ctm_cps1d_plan(ctm_cps_ws *ws, const ctm_machine *mc, const int (*plan)[3], int len) {
     if (mc->n < 1 || mc->m < 2 || mc->n * mc->m > CTM_MAX_ENTRIES) return CTM_EINVAL;
     for (int e = 0; e < mc->n * mc->m; e++)
         if (mc->def[e] == 1 && (mc->wr[e] >= mc->m || mc->nx[e] >= mc->n || mc->mv[e] > 1)) return CTM_EINVAL;
+    for (int i = 0; i < len; i++) /* windows fit the fixed buffers of cps_once; limits fit int32 links */
+        if (plan[i][0] < 1 || plan[i][0] > CTM_CPS_MAX_WINDOW || plan[i][1] < 0 || plan[i][2] < 1
+            || plan[i][2] > CTM_CPS_MAX_LOG2) return CTM_EINVAL;
     ctm_cps_ws *own = NULL;
     if (!ws && !(ws = own = ctm_cps_ws_new())) return CTM_ENOMEM;
     int found = 0;
-    for (int i = 0; i < np && i < max_attempts && !found; i++) {
-        int rc = cps_once(ws, mc, cps_plan[i][0], cps_plan[i][1], (size_t)1 << cps_plan[i][2]);
+    for (int i = 0; i < len && !found; i++) {
+        int rc = cps_once(ws, mc, plan[i][0], plan[i][1], (size_t)1 << plan[i][2]);
         if (rc < 0) { found = rc; break; }
         if (rc == PROVEN) found = i + 1;
     }
     ctm_cps_ws_free(own);
     return found;
+}
+
+int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts) {
+    return ctm_cps1d_plan(ws, mc, cps_plan, max_attempts < CPS_PLAN_LEN ? max_attempts : CPS_PLAN_LEN);
 }
 
 int ctm_cps_attempts(void) { return CPS_PLAN_LEN; }

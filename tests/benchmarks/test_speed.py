@@ -19,6 +19,19 @@ def test_exhaustive_build(benchmark, n, cap):
     benchmark.extra_info["halting_nodes"] = tally.halting_nodes
 
 
+@pytest.mark.parametrize("relabel", [False, True], ids=["plain", "relabelled"])
+@pytest.mark.parametrize("n,m,cap", [(2, 3, 38), pytest.param(2, 4, 200, marks=pytest.mark.slow)])
+def test_symbol_relabelling(benchmark, n, m, cap, relabel):
+    """The first-use symbol order against the plain search: the same table, fewer nodes. The
+    relabelled case passes no new keyword, so it also times an older checkout's default build
+    (PYTHONPATH pointing at it), the figure README compares with."""
+    kwargs = {"budget_hours": None} if relabel else {"budget_hours": None, "relabel": False}
+    tally = benchmark.pedantic(build, args=(Space(1, n, m), cap), kwargs=kwargs,
+                               rounds=20 if m == 3 else 2, iterations=1)
+    benchmark.extra_info["steps"] = tally.steps
+    benchmark.extra_info["halting_nodes"] = tally.halting_nodes
+
+
 def test_champion_simulation(benchmark):
     r = benchmark.pedantic(run, args=(CHAMPION_5, 10**8), rounds=5, iterations=1)
     assert r.steps == 47_176_870
