@@ -10,7 +10,7 @@ DECIDERS = {
     "escapee": 2,            # on fresh blank cells a chain of entries runs off the same way
     "cycler": 4,             # a configuration repeats exactly
     "translated-cycler": 8,  # a record configuration repeats shifted (1D and 2D)
-    "ngram-cps": 16,         # n-gram closed position set, after the cap (1D)
+    "ngram-cps": 16,         # n-gram closed position set (1D; 2D runs still in one row at the cap)
 }
 ALL_DECIDERS = tuple(DECIDERS)
 # Not a decider but a search option beside their bits (CTM_SEARCH_RELABEL): exhaustive searches

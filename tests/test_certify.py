@@ -98,6 +98,9 @@ def test_cps_refuses_a_malformed_machine():
     (Space(1, 2, 3), 12, 38),    # S(2,3) = 38 (Lafitte & Papazian 2007)
     (Space(2, 2, 2), 20, 4096),  # 2D: no bound is proven; 4,096 is the core's largest cap
     (Space(2, 3, 2), 60, 1000),
+    (Space(2, 2, 2), 128, 4096),  # from cap 128 the CPS also runs, in 2D on runs still in one row
+    (Space(2, 3, 2), 128, 2000),
+    pytest.param(Space(2, 4, 2), 128, 1024, marks=pytest.mark.ci_slow),
 ])
 def test_per_size_bounds_hold_against_a_longer_run(space, cap, truth):
     """Every run that halts between the two caps was undecided at the smaller one, with a span
@@ -339,3 +342,41 @@ def test_2d_translated_cycler_keeps_every_halt_of_42(cap):
     translated cycler (a wrong proof of a node that halts by the cap would lower it)."""
     with_it, without = (_core.run_unit(2, 4, 2, cap, bits) for bits in (15, 7))
     assert with_it["halting"] == without["halting"] and with_it["undecided"] < without["undecided"]
+
+
+# ---- the CPS on 2D runs confined to one row
+
+def reaches_undefined_2d(text, steps):
+    """An independent 2D simulator (compact notation, moves N E S W): True if the run from the
+    blank grid meets an undefined or HALT entry within `steps` steps."""
+    moves = {"N": (0, -1), "E": (1, 0), "S": (0, 1), "W": (-1, 0)}
+    table = {}
+    for q, group in enumerate(text.split("_")):
+        for sym in range(len(group) // 3):
+            w, d, t = group[3 * sym: 3 * sym + 3]
+            if w != "-" and t != "Z":
+                table[(q, sym)] = (int(w), moves[d], ord(t) - 65)
+    grid, x, y, state = {}, 0, 0, 0
+    for _ in range(steps):
+        entry = table.get((state, grid.get((x, y), 0)))
+        if entry is None:
+            return True
+        grid[(x, y)] = entry[0]
+        x, y, state = x + entry[1][0], y + entry[1][1], entry[2]
+    return False
+
+
+def test_row_cps_proofs_in_2d_survive_a_long_run():
+    """2D (3,2) at cap 128: the nodes that the CPS proves (those undecided without it) all ran
+    in one row, and each runs 20,000 steps in an independent simulator without meeting an
+    undefined entry."""
+    space = Space(2, 3, 2)
+    with_cps = build(space, 128, holdouts=True, budget_hours=None)
+    without = build(space, 128, deciders=ALL_BUT_CPS, holdouts=True, budget_hours=None)
+    left = set(ho.lines(space, with_cps.holdouts))
+    proved = [line for line in ho.lines(space, without.holdouts) if line not in left]
+    assert with_cps.proofs["ngram-cps"] == sum(int(line.split()[1]) for line in proved) > 0
+    for line in proved:
+        mach, _, _, size = line.split()
+        assert size.startswith("1x") and not reaches_undefined_2d(mach, 20_000), line
+    assert with_cps.halting == without.halting

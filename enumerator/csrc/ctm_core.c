@@ -431,6 +431,22 @@ static int try_cps(ctm_unit *u) {
     return ctm_cps1d(u->cps_ws, &mc, ctm_cps_attempts());
 }
 
+/* 2D: the CPS of the 1D machine made of the E (R) and W (L) moves, every N or S move
+ * counting as a possible halt. From the blank grid the head stays in the first row until
+ * it takes an N or S move, so if that 1D machine never reaches an entry that may halt, the
+ * 2D run never leaves the row and never halts. Tried on runs still in one row at the cap. */
+static int try_cps_row(ctm_unit *u) {
+    if (!u->cps_ws && !(u->cps_ws = ctm_cps_ws_new())) return CTM_ENOMEM;
+    int8_t def[CTM_MAX_ENTRIES], mv[CTM_MAX_ENTRIES];
+    for (int e = 0; e < u->nent; e++) {
+        int row = u->def[e] == 1 && (u->mv[e] == CTM_E || u->mv[e] == CTM_W);
+        def[e] = (int8_t)(row ? 1 : 0);
+        mv[e] = (int8_t)(row && u->mv[e] == CTM_W ? 1 : 0);
+    }
+    ctm_machine mc = {u->n, u->m, def, u->wr, mv, u->nx};
+    return ctm_cps1d(u->cps_ws, &mc, ctm_cps_attempts());
+}
+
 /* An undecided node at the cap: its weight by the size its output has
  * reached (outputs only grow, so it can never produce a smaller key), and,
  * when asked for, the node itself for other provers. */

@@ -29,7 +29,7 @@
 #define CTM_DEC_ESCAPE 2u  /* escapee on fresh blank tape */
 #define CTM_DEC_CYCLE 4u   /* repeated configuration */
 #define CTM_DEC_SHIFT 8u   /* translated cycler: a record configuration repeats shifted */
-#define CTM_DEC_CPS 16u    /* n-gram closed position set, after the cap (1D) */
+#define CTM_DEC_CPS 16u    /* n-gram closed position set (1D; 2D runs still in one row at the cap) */
 #define CTM_DEC_COUNT 5    /* proof kinds counted in ctm_unit.proven, one per bit above */
 /* A search option beside the decider bits: write the non-blank symbols in
  * first-use order (relabelling them maps runs onto runs), the new one standing
