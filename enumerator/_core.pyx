@@ -67,6 +67,7 @@ cdef extern from "csrc/ctm_core.h" nogil:
     ctm_cps_ws *ctm_cps_ws_new()
     int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts)
     int ctm_cps1d_plan(ctm_cps_ws *ws, const ctm_machine *mc, const int (*plan)[3], int len)
+    int ctm_cps1d_at_cap(ctm_cps_ws *ws, const ctm_machine *mc)
     int ctm_cps_attempts()
     ctypedef struct ctm_run_result:
         int status
@@ -290,10 +291,11 @@ cdef ctm_cps_ws *_ws() except NULL:
 
 
 def cps_prove(int n, int m, const int8_t[:] defined, const uint8_t[:] wr, const int8_t[:] mv,
-              const uint8_t[:] nx, int attempts=-1, plan=None):
+              const uint8_t[:] nx, int attempts=-1, plan=None, bint at_cap=False):
     """n-gram CPS on one partial 1D machine (defined[e] 1 = MOVE, mv 0 = R, 1 = L):
     the 1-based attempt of the schedule that proved non-halting, or 0. plan: a schedule of
-    (window n, history k, log2 of the configurations allowed) instead of the build's."""
+    (window n, history k, log2 of the configurations allowed) instead of the build's.
+    at_cap: the costlier attempts a build adds at the cap (numbered after the others)."""
     cdef ctm_machine mc
     cdef int rc, i
     cdef int steps[64][3]
@@ -314,6 +316,8 @@ def cps_prove(int n, int m, const int8_t[:] defined, const uint8_t[:] wr, const 
         for i in range(len(plan)):
             steps[i][0], steps[i][1], steps[i][2] = plan[i]
         rc = ctm_cps1d_plan(ws, &mc, steps, len(plan))
+    elif at_cap:
+        rc = ctm_cps1d_at_cap(ws, &mc)
     else:
         rc = ctm_cps1d(ws, &mc, attempts if attempts >= 0 else ctm_cps_attempts())
     if rc < 0:

@@ -42,8 +42,9 @@ def reaches_undefined(text, steps):
     return False
 
 
-def cps(text):
-    """The core's CPS on one partial machine in compact notation: the attempt that proved it, or 0."""
+def cps(text, **how):
+    """The core's CPS on one partial machine in compact notation: the attempt that proved it, or 0.
+    how: at_cap=True for the costlier attempts a build adds at the cap, or plan=[(n, k, log2)]."""
     table = parse(text)
     groups = text.split("_")
     n, m = len(groups), len(groups[0]) // 3
@@ -54,7 +55,7 @@ def cps(text):
             de[q * m + s] = 2  # HALT: may halt, like an undefined entry
             continue
         de[q * m + s], wr[q * m + s], mv[q * m + s], nx[q * m + s] = 1, w, 0 if d > 0 else 1, t
-    return _core.cps_prove(n, m, de, wr, mv, nx)
+    return _core.cps_prove(n, m, de, wr, mv, nx, **how)
 
 
 # ---- n-gram CPS on hand-built machines, both ways
@@ -81,6 +82,14 @@ def test_cps_proves_machines_that_never_halt(machine):
 ])
 def test_cps_never_proves_a_machine_that_halts(machine):
     assert cps(machine) == 0
+    assert cps(machine, at_cap=True) == 0
+    assert cps(machine, plan=[(n, k, 16) for n in (2, 4, 6) for k in (0, 2, 4)]) == 0
+
+
+@pytest.mark.parametrize("plan", [[(0, 0, 10)], [(17, 0, 10)], [(2, -1, 10)], [(2, 0, 0)], [(2, 0, 25)]])
+def test_cps_refuses_an_impossible_schedule(plan):
+    with pytest.raises(ValueError):
+        cps("0RB1LA_1LA1RB_------_------_------", plan=plan)
 
 
 def test_cps_refuses_a_malformed_machine():
@@ -278,15 +287,16 @@ def test_cps_proofs_on_52_holdouts_survive_a_long_run():
     from ctmtab.enumerator.machine import run
     space = Space(1, 5, 2)
     p = plan(space, 500, None, ALL_BUT_CPS)
-    proved = 0
+    proved = at_cap = 0
     for unit in p.units[::max(1, len(p.units) // 4)][:4]:
         r = _core.run_unit(1, 5, 2, 500, 15, unit.prefix, -1, True)
         for line in ho.lines(space, [r["holdouts"]]):
             mach = line.split()[0]
-            if cps(mach):
+            if cps(mach) or cps(mach, at_cap=True):
                 proved += 1
+                at_cap += cps(mach) == 0
                 assert run(mach, 20_000).status != "undefined", mach
-    assert proved > 1000
+    assert proved > 1000 and at_cap > 0
 
 
 def test_the_command_line_shows_the_certificate(tmp_path):

@@ -65,6 +65,8 @@ int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts);
 #define CTM_CPS_MAX_LOG2 24
 int ctm_cps1d_plan(ctm_cps_ws *ws, const ctm_machine *mc, const int (*plan)[3], int len);
 int ctm_cps_attempts(void);
+/* The attempts tried at the cap after those, numbered on from ctm_cps_attempts() + 1. */
+int ctm_cps1d_at_cap(ctm_cps_ws *ws, const ctm_machine *mc);
 
 const char *ctm_strerror(int code);
 
