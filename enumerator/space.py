@@ -9,7 +9,7 @@ from ..errors import SpaceError, TooLargeError
 # factor (2 in 1D, 8 in 2D) times the m blank images must stay below 2**127.
 COUNT_BITS = 127
 MAX_ENTRIES = 64
-MAX_CAP = 10**7
+MAX_CAP = 5 * 10**7  # past S(5) = 47,176,870; a 1D unit holds two tapes of 2 cap + 3 cells
 
 
 @dataclass(frozen=True)

@@ -73,3 +73,18 @@ def symbols_of(codes: np.ndarray, m: int, length: int) -> np.ndarray:
         out[:, j] = (rest % mm).astype(np.uint8)
         rest //= mm
     return out
+
+
+SPARSE_MIN = 4096  # histograms at least this long are stored sparse when at most a quarter is non-zero
+
+
+def encode_hist(values: list) -> dict:
+    """A histogram: {"n", "limbs", "data"} of every entry, or, for a long one that is mostly
+    zero (a cap of millions of steps), {"n", "at", "limbs", "data"} of its non-zero entries only,
+    "at" their indices as uint64."""
+    n = len(values)
+    if n >= SPARSE_MIN:
+        at = [i for i, v in enumerate(values) if v]
+        if 4 * len(at) <= n:
+            return dict(encode_counts([values[i] for i in at]), n=n, at=np.asarray(at, dtype=U64).tobytes())
+    return dict(encode_counts(values), n=n)

@@ -263,7 +263,20 @@ def _counts(spec, n: int, where: str, what: str) -> np.ndarray:
 
 def _hist(spec, limit: int, where: str, what: str) -> list:
     _need(isinstance(spec, dict) and _int(spec.get("n"), 0, limit), where, f"{what} is malformed")
-    return [int(v) for v in _counts(spec, spec["n"], where, what)]
+    n = spec["n"]
+    if "at" not in spec:
+        return [int(v) for v in _counts(spec, n, where, what)]
+    # since 1.4: the non-zero entries only, at strictly increasing indices below n
+    at = spec["at"]
+    _need(isinstance(at, bytes) and len(at) % 8 == 0 and len(at) // 8 <= n, where, f"{what} has malformed indices")
+    idx = np.frombuffer(at, dtype="<u8")
+    _need(bool(np.all(idx < n)) and bool(np.all(idx[1:] > idx[:-1])), where,
+          f"{what} has indices out of order or past its {n} entries")
+    values = _counts(spec, len(idx), where, what)
+    out = [0] * n
+    for i, v in zip(idx.tolist(), values.tolist() if values.dtype != object else values):
+        out[i] = int(v)
+    return out
 
 
 def _rows_increasing(rows: np.ndarray) -> bool:

@@ -18,7 +18,7 @@ from ..enumerator.tally import relabelling, relative_sample_errors, sample_error
 from ..errors import InconsistentTableError, MissingKeyError, RareKeyWarning, SpaceError, TableError
 from . import certify
 from . import format as fmt
-from .arrays import codes_of, encode_counts, exact_sum, fits_code64, symbols_of
+from .arrays import codes_of, encode_counts, encode_hist, exact_sum, fits_code64, symbols_of
 
 FORMALISM = "busy-beaver: entries MOVE(write, direction, next) or HALT(write); every transition is a step"
 MISSING_POLICIES = ("raise", "nan", "fallback")
@@ -259,8 +259,8 @@ class Table:
             out.append(spec)
         return {
             "groups": out,
-            "hist_steps": dict(encode_counts(self.hist_steps), n=len(self.hist_steps)),
-            "hist_len": dict(encode_counts(self.hist_len), n=len(self.hist_len)),
+            "hist_steps": encode_hist(self.hist_steps),
+            "hist_len": encode_hist(self.hist_len),
         }
 
     def to_bytes(self) -> bytes:

@@ -193,3 +193,25 @@ def test_every_core_error_code_has_its_own_class():
     assert issubclass(CoreArgumentError, CtmtabError) and CoreArgumentError("x").exit_code == 2
     r = core.sample_unit(1, 5, 5, 100, 15, 7, 100)  # sampling counts samples: no 128-bit bound
     assert r["halting"] + r["non_halting"] + r["undecided"] == 100
+
+
+def test_shipped_exact_five_state_table():
+    # arXiv:2509.12337 (verified, REFERENCES.md): S(5) = 47,176,870 steps, the champion leaves
+    # 4,098 ones, and the Coq proof's tree normal form has 48,379,894 halting nodes; a cap of at
+    # least S(5) must reach exactly that many. OEIS A141475: 26,559,922,791,424 machines.
+    from ctmtab.enumerator import run
+    from ctmtab.tables import load, problems
+    t = load("1d-n5-m2-t47176870-exact")
+    assert t.space == Space(1, 5, 2) and t.cap == 47_176_870 and t.space_size == 26_559_922_791_424
+    assert t.exact and t.undecided == 0 and t.certificate.step_bound["steps"] == 47_176_870
+    stats = t.header["stats"]
+    assert stats["halting_nodes"] == 48_379_894
+    assert stats["longest_run"] == 47_176_870 and stats["most_nonblank"] == 4_098
+    assert t.hist_steps[47_176_870] > 0 and len(t.hist_steps) == 47_176_871
+    champion = run("1RB1LC_1RC1RB_1RD0LE_1LA1LD_1RZ0LA", 10**8)  # the one-machine simulator
+    assert champion.steps == 47_176_870 and t.count("".join(map(str, champion.output))) >= 1
+    # a longer cap only adds halts: every count of the cap-500 table is at most the exact one
+    short = load("1d-n5-m2-t500")
+    exact = dict(t.items())
+    assert all(exact.get(k, 0) >= c for k, c in short.items())
+    assert t.halting > short.halting and problems(t) == []

@@ -438,3 +438,42 @@ def test_resealed_nested_field_replacements(where, value):
     problems(t)
     _json(t.to_json())
     t.to_tally()
+
+
+# ---- sparse histograms (format 1.4): a long, mostly empty step histogram keeps its non-zero entries
+
+@__import__("functools").lru_cache(maxsize=1)
+def _sparse_steps_bytes():
+    """The shipped exact (2,4) table: 3,932,965 step-histogram entries, a few thousand non-zero."""
+    return load("1d-n2-m4-t3932964-exact").to_bytes()
+
+
+def test_a_long_step_histogram_is_stored_sparse_and_reads_back_exactly():
+    t = load("1d-n2-m4-t3932964-exact")
+    data = _sparse_steps_bytes()
+    body = msgpack.unpackb(zstandard_decompress(data), raw=False)
+    assert "at" in body["hist_steps"] and len(body["hist_steps"]["at"]) < len(t.hist_steps)
+    back = loads(data)
+    assert back.hist_steps == t.hist_steps and sum(back.hist_steps) == back.halting
+    assert problems(back) == []
+
+
+def zstandard_decompress(data: bytes) -> bytes:
+    import zstandard
+    _, _, body = split(data)
+    return zstandard.ZstdDecompressor().decompress(body)
+
+
+@pytest.mark.parametrize("edit,fragment", [
+    (lambda h: h.update(at=h["at"][8:16] + h["at"][:8] + h["at"][16:]), "out of order"),   # indices swapped
+    (lambda h: h.update(at=h["at"][:-8] + (10**9).to_bytes(8, "little")), "out of order or past"),  # past n
+    (lambda h: h.update(at=h["at"][:-3]), "malformed indices"),                                # a torn index
+    (lambda h: h.update(at=h["at"][:-8]), "bytes, not"),                                      # one count too many
+])
+def test_a_damaged_sparse_histogram_is_refused(edit, fragment):
+    def damage(raw):
+        body = msgpack.unpackb(raw, raw=False)
+        edit(body["hist_steps"])
+        return msgpack.packb(body, use_bin_type=True)
+    with pytest.raises(InconsistentTableError, match=fragment):
+        loads(with_raw_body(_sparse_steps_bytes(), damage))

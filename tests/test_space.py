@@ -61,3 +61,12 @@ def test_invariant_holds(n, m, cap):
     t = exact_table(n, m, cap)
     assert t.halting + t.non_halting + t.undecided == Space(1, n, m).size
     t.check()
+
+
+def test_the_cap_limit_reaches_the_five_state_bound():
+    from ctmtab.enumerator.bounds import STEP_BOUNDS
+    from ctmtab.enumerator.space import MAX_CAP, check_cap
+    assert max(STEP_BOUNDS.values(), key=lambda b: b[0])[0] <= MAX_CAP  # S(5) = 47,176,870 fits
+    assert check_cap(MAX_CAP) == MAX_CAP
+    with pytest.raises(SpaceError, match="over the limit"):
+        check_cap(MAX_CAP + 1)

@@ -37,6 +37,7 @@
 #define CTM_SEARCH_RELABEL 256u
 
 #define CTM_PROBE_RUN 65536 /* probe walks simulate at most this many steps per segment */
+#define CTM_QUIET_AT 131072 /* 1D: no cycler checks past this step (see SEGMENT) */
 #define CTM_REC_RING 32    /* records kept per side for the translated-cycler check */
 #define CTM_REC_WINDOW 64  /* cells kept behind each record */
 #define CTM_REC2_RING 32   /* 2D: records kept, all sides together */
