@@ -44,9 +44,9 @@ def decider_bits(names) -> int:
 def search_bits(space: Space, cap: int, deciders, relabel: bool = True) -> int:
     """The decider bits an exhaustive search runs with. The CPS (in 2D on runs still in one row
     at the cap) starts at CPS_MIN_CAP: below it most undecided runs are only cut short (they
-    branch soon after), so it would only cost time. At
-    a cap at or past a proven busy-beaver bound the bound proves every undecided node, but the
-    CPS still saves running most of them to the cap.
+    branch soon after), so it would only cost time. At a cap at or past a proven busy-beaver
+    bound the bound proves every undecided node, but the CPS still saves running most of them
+    to the cap.
     relabel: with 3 or more symbols, write the non-blank ones in first-use order (the counts
     are the same either way; False is for tests and benchmarks)."""
     bits = decider_bits(deciders)

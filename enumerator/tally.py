@@ -111,14 +111,14 @@ def split_flag(flag: int) -> tuple[int, int]:
 def symbol_maps(m: int, used: int) -> tuple:
     """The symbol maps that expand one raw output whose non-blank symbols are 1..used in
     first-use order: every injection of them into 1..m-1 (the others never occur), then every
-    blank swap; as bytes.translate tables. (m-1)!/(m-1-used)! injections share the weight."""
+    blank swap; as uint8 lookup arrays. (m-1)!/(m-1-used)! injections share the weight."""
     maps = []
     for inj in itertools.permutations(range(1, m), used):
         first = np.arange(m, dtype=np.uint8)
         first[1:used + 1] = inj
         for swap in blank_perms(m):
             maps.append(swap[first])
-    return tuple(perm.tobytes() + bytes(range(m, 256)) for perm in maps), math.perm(m - 1, used)
+    return tuple(maps), math.perm(m - 1, used)
 
 
 def _share(weight: int, images: int, used: int) -> int:
@@ -153,7 +153,7 @@ def expand_raw(space: Space, raw: dict) -> dict:
         grids = np.frombuffer(b"".join(bodies), dtype=np.uint8).reshape(k, *shape)
         if used and int(grids.max()) > used:
             raise InvariantError(f"a raw output uses a symbol past the {used} in use; this is a bug")
-        tables, count = symbol_maps(m, used)
+        perms, count = symbol_maps(m, used)
         shares = np.array([_share(w, count, used) for w in ws], dtype=object if wide else np.int64)
         if space.dims == 1:
             imgs = [grids, grids[:, ::-1]] if cls else [grids]
@@ -161,8 +161,8 @@ def expand_raw(space: Space, raw: dict) -> dict:
             imgs = dihedral_images(grids, cls)
         for img in imgs:
             flat = img.reshape(k, -1)
-            for table in tables:
-                images.setdefault(tuple(img.shape[1:]), []).append((np.frombuffer(table[:m], np.uint8)[flat], shares))
+            for perm in perms:
+                images.setdefault(tuple(img.shape[1:]), []).append((perm[flat], shares))
     out = {}
     for shape in sorted(images):
         parts = images.pop(shape)  # one shape's images at a time

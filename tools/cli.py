@@ -362,21 +362,21 @@ def cmd_build(a) -> int:
         added = ""
         if base is not None:
             added = (f"; the table now holds {table.header['sample']['size']:,} samples, {table.distinct:,} outputs, "
-                     f"undecided {table.undecided / table.header['sample']['size']:.3%}")
+                     f"undecided {_percent(table.undecided / table.header['sample']['size'])}")
         left = ("exact (every run left at the cap proven by the step bound)" if tally.step_bound
-                else f"undecided {_share(tally.undecided, tally.weight)}")
+                else f"undecided {_percent(tally.undecided / tally.weight)}")
         print(f"{space.label} cap {cap}:{part} {tally.weight:,} {what}, {tally.distinct():,} outputs, "
               f"{left}{stop}{added}, {time.perf_counter() - t0:.2f} s{again} "
               f"-> {output}", file=sys.stderr)
     return 0
 
 
-def _share(part: int, whole: int) -> str:
+def _percent(fraction: float) -> str:
     """A fraction as a percentage with three significant digits, so a small one is not 0.000%."""
-    if not part or not whole:
+    if not fraction:
         return "0%"
-    frac = 100 * part / whole
-    return f"{frac:.3f}%" if frac >= 1 else f"{frac:.3g}%"
+    pct = 100 * fraction
+    return f"{pct:.3f}%" if pct >= 1 else f"{pct:.3g}%"
 
 
 def cmd_info(a) -> int:
@@ -392,7 +392,7 @@ def cmd_info(a) -> int:
         f"  space      {s['label']} ({t.space.size:,} machines), cap {t.cap}, {s['mode']}"
         + (f", {s['sample']['size']:,} samples, seed {s['sample']['seed']}" if s.get("sample") else ""),
         f"  halting    {t.halting:,}  non-halting {t.non_halting:,}  undecided {t.undecided:,} "
-        f"({_share(t.undecided, t.halting + t.non_halting + t.undecided)})",
+        f"({_percent(s['undecided_fraction'])})",
         f"  keys       {s['distinct_keys']:,} distinct; complete up to size "
         f"{max([int(x.split('x')[0]) for x in s['complete_shapes']] or [0]) if t.space.dims == 1 else s['complete_shapes']}",
         f"  CTM        {s['ctm_min']:.4f} to {s['ctm_max']:.4f} bits" if t.total
