@@ -43,7 +43,7 @@ class Runner:
     def __init__(self, workers: int = 1, scheduler: str | None = None):
         self.workers, self.scheduler = workers, scheduler
         self.pool = self.client = None
-        self._previous = self._signalled = None
+        self._previous = self._signalled = self._previous_pipe = None
 
     def __enter__(self):
         if self.scheduler:
@@ -53,9 +53,14 @@ class Runner:
 
             self.pool = ProcessPoolExecutor(max_workers=self.workers, initializer=_worker_init,
                                             initargs=(os.getpid(),))
-            if threading.current_thread() is threading.main_thread() and \
-                    signal.getsignal(signal.SIGTERM) is signal.SIG_DFL:
-                self._previous = signal.signal(signal.SIGTERM, self._on_sigterm)
+            if threading.current_thread() is threading.main_thread():
+                if signal.getsignal(signal.SIGTERM) is signal.SIG_DFL:
+                    self._previous = signal.signal(signal.SIGTERM, self._on_sigterm)
+                # the pool's manager thread may still write to a worker killed on SIGTERM: that
+                # must be an EPIPE it handles, not a SIGPIPE (the CLI's default, for `| head`)
+                # that ends the build before it can unwind
+                if hasattr(signal, "SIGPIPE"):
+                    self._previous_pipe = signal.signal(signal.SIGPIPE, signal.SIG_IGN)
         return self
 
     def _kill_workers(self) -> None:
@@ -89,6 +94,9 @@ class Runner:
             self.pool.shutdown(wait=kind is None, cancel_futures=True)
             if self._previous is not None:
                 signal.signal(signal.SIGTERM, self._previous)
+            if self._previous_pipe is not None and kind is None and not self._signalled:
+                # after a failure the pool's threads may still write to dead workers on the way out
+                signal.signal(signal.SIGPIPE, self._previous_pipe)
             self._check()
         if self.client is not None:
             self.client.close()
