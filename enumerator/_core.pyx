@@ -35,6 +35,7 @@ cdef extern from "csrc/ctm_core.h" nogil:
         ctm_map raw
         ctm_count halting, non_halting, undecided
         ctm_count proven[5]
+        uint64_t proven_nodes[5]
         ctm_map undec
         int keep_holdouts
         int64_t cps_at
@@ -158,6 +159,7 @@ cdef dict _result(ctm_unit *u, int64_t cap):
         undec[(int.from_bytes(key[:4], "little"), int.from_bytes(key[4:], "little"))] = w
     return dict(
         proven=[_int(&u.proven[k]) for k in range(CTM_DEC_COUNT)],
+        proven_nodes=[int(u.proven_nodes[k]) for k in range(CTM_DEC_COUNT)],
         undecided_by_size=undec,
         raw=raw,
         halting=_int(&u.halting),

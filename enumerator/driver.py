@@ -150,6 +150,7 @@ def build(
     on_progress=None,
     holdouts: bool = False,
     relabel: bool = True,
+    max_size: int | None = None,
 ) -> Tally:
     """Enumerate every machine of the space under cap; return the exact tally.
 
@@ -160,7 +161,9 @@ def build(
     every split, executor, shard merge and resume. on_progress(done, total,
     weight_done, weight_total, steps) is called as units finish. holdouts keeps
     every undecided node in tally.holdouts (enumerator/holdouts.py renders them). relabel=False
-    turns off the first-use symbol order (same counts, for tests and benchmarks)."""
+    turns off the first-use symbol order (same counts, for tests and benchmarks). max_size keeps
+    the keys up to that size only, with an exact record of the rest (tables/cut.py), and never
+    holds the longer ones as keys, which bounds the memory of a big build's expansion."""
     _prepare(space, cap)
     if budget_hours is not None and not (isinstance(budget_hours, (int, float)) and 0 < budget_hours < math.inf):
         raise SpaceError(f"the budget must be a positive number of CPU-hours, got {budget_hours!r}; "
@@ -171,6 +174,10 @@ def build(
             raise SpaceError(f"shard {i}/{n} does not exist; use I/N with 0 <= I < N")
     if workers < 1:
         raise SpaceError(f"--workers must be 1 or more, got {workers}")
+    if max_size is not None and (isinstance(max_size, bool) or not isinstance(max_size, int) or max_size < 1
+                                 or shard is not None):
+        raise SpaceError(f"max_size must be a whole number >= 1 on a whole build, got {max_size!r}"
+                         + (" on a shard; cut the merged table instead" if shard is not None else ""))
     t0 = time.perf_counter()
     # The default-depth plan is cheap and serves the estimate too; another depth (0 runs the
     # whole tree as its top) is planned only after the estimate has let the build through.
@@ -229,6 +236,7 @@ def build(
         space, cap, part, deciders=tuple(deciders), units=p.count,
         covered=None if shard is None else chosen, weight=weight_total,
         plan_ident=p.ident, depth=p.depth, shard=shard, relabelled=bool(p.bits & SEARCH_RELABEL),
+        max_size=max_size,
     )
     tally.seconds = time.perf_counter() - t0
     tally.resumed = resumed

@@ -31,6 +31,7 @@ class Partial:
     steps: int = 0
     undecided_nodes: int = 0
     proven: list = field(default_factory=list)  # non-halting weight by decider, in DECIDERS order
+    proven_nodes: list | None = field(default_factory=list)  # tree nodes by decider; None: a unit lacked them
     undecided_by_size: dict = field(default_factory=dict)  # (rows, cols) at the cap -> weight
     holdouts: list = field(default_factory=list)  # per unit: packed undecided nodes (core records)
 
@@ -40,6 +41,8 @@ class Partial:
             setattr(self, name, getattr(self, name) + unit[name])
         self.undecided_nodes += unit.get("undecided_nodes", 0)
         _add_lists(self.proven, unit.get("proven", []))
+        if self.proven_nodes is not None:  # a spool record from before node counts leaves them unknown
+            self.proven_nodes = _add_lists(self.proven_nodes, unit["proven_nodes"]) if "proven_nodes" in unit else None
         _add_into(self.undecided_by_size, unit.get("undecided_by_size", {}))
         if unit.get("holdouts"):
             self.holdouts.append(unit["holdouts"])
@@ -130,10 +133,12 @@ def _share(weight: int, images: int, used: int) -> int:
     return share
 
 
-def expand_raw(space: Space, raw: dict) -> dict:
+def expand_raw(space: Space, raw: dict, max_size: int | None = None, dropped: dict | None = None) -> dict:
     """Exhaustive raw outputs (flag byte + symbols -> weight on blank 0) -> shape -> {key: count}
     over every run: mirror (1D) or dihedral (2D) images of the output's class, times its symbol
-    maps. Vectorised: one sort per output shape; sorted by shape, then key."""
+    maps. Vectorised: one sort per output shape; sorted by shape, then key. With max_size, a
+    shape whose longer side passes it keeps only its record in `dropped`: shape -> (weight,
+    keys, largest count), and never becomes a dict of keys."""
     m = space.symbols
     by_kind: dict = {}
     for key, w in raw.items():
@@ -175,6 +180,9 @@ def expand_raw(space: Space, raw: dict) -> dict:
         ids = inverse.reshape(-1)[order]
         starts = np.flatnonzero(np.r_[True, ids[1:] != ids[:-1]])
         sums = np.add.reduceat(weights[order], starts)
+        if max_size is not None and size_of(shape) > max_size:
+            dropped[shape] = (int(sums.sum()), len(sums), int(sums.max()))
+            continue
         out[shape] = dict(zip(map(bytes, keys), map(int, sums)))
     return out
 
@@ -306,11 +314,14 @@ class Tally:
     streams: list | None = None  # sampled: (seed, size) of every stream the samples came from
     until: dict | None = None    # sampled with a target: the target and what stopped the build
     proofs: dict | None = None   # decider name -> non-halting weight it proved; None: not recorded
+    proof_nodes: dict | None = None  # decider name -> tree nodes it closed; None: not recorded
     undecided_by_size: dict | None = None  # (rows, cols) an undecided run had reached -> weight
     undecided_nodes: int = 0     # tree nodes left undecided
     step_bound: tuple | None = None  # (S, source) when cap >= a proven busy-beaver bound
     holdouts: list = field(default_factory=list, repr=False)  # packed undecided nodes, if kept
     relabelled: bool = False     # exhaustive, m >= 3: the search wrote symbols in first-use order
+    max_size: int | None = None  # keys kept up to this size (longer side); None: every key
+    dropped: dict = field(default_factory=dict)  # cut shapes -> (weight, keys, largest count)
 
     def __post_init__(self):
         if self.weight is None:
@@ -322,7 +333,8 @@ class Tally:
 
     @property
     def total_count(self) -> int:
-        return sum(sum(g.values()) for g in self.groups.values())
+        """Every count, the cut ones included: probabilities stay normalised by the true total."""
+        return sum(sum(g.values()) for g in self.groups.values()) + sum(w for w, _, _ in self.dropped.values())
 
     def count(self, symbols, shape=None) -> int:
         key = bytes(symbols)
@@ -357,9 +369,12 @@ class Tally:
         return tally
 
     @classmethod
-    def from_partial(cls, space: Space, cap: int, part: Partial, **extra) -> "Tally":
-        """Expand mirror images and symbol relabellings, then check every invariant."""
-        groups = expand_raw(space, part.raw)
+    def from_partial(cls, space: Space, cap: int, part: Partial, max_size: int | None = None, **extra) -> "Tally":
+        """Expand mirror images and symbol relabellings, then check every invariant. max_size:
+        keep keys up to that size only, with an exact record of the rest (Tally.dropped)."""
+        dropped: dict = {}
+        groups = expand_raw(space, part.raw, max_size, dropped)
+        extra.update(max_size=max_size, dropped=dropped)
         tally = cls(
             space=space,
             cap=cap,
@@ -385,10 +400,15 @@ class Tally:
         self.proofs = {name: (part.proven[i] if i < len(part.proven) else 0) for i, name in enumerate(DECIDERS)}
         self.undecided_by_size = dict(sorted(part.undecided_by_size.items()))
         self.undecided_nodes = part.undecided_nodes
+        if part.proven_nodes is not None:
+            self.proof_nodes = {name: (part.proven_nodes[i] if i < len(part.proven_nodes) else 0)
+                                for i, name in enumerate(DECIDERS)}
         bound = bound_reached(self.space, self.cap)
         if bound is not None and self.mode == "exhaustive":
             self.step_bound = bound
             self.proofs[STEP_BOUND] = self.undecided
+            if self.proof_nodes is not None:
+                self.proof_nodes[STEP_BOUND] = self.undecided_nodes
             self.non_halting += self.undecided
             self.undecided = 0
             self.undecided_by_size = {}
@@ -419,6 +439,10 @@ class Tally:
         by_size: dict = {}
         for shape, group in self.groups.items():
             by_size[size_of(shape)] = by_size.get(size_of(shape), 0) + sum(group.values())
+        for shape, (weight, _, _) in self.dropped.items():
+            if self.max_size is None or size_of(shape) <= self.max_size or shape in self.groups:
+                raise InvariantError(f"shape {shape} is recorded as cut but the cut keeps it (a bug)")
+            by_size[size_of(shape)] = by_size.get(size_of(shape), 0) + weight
         for size, total in by_size.items():
             hist = self.length_hist[size] if size < len(self.length_hist) else 0
             if total != per_run * hist:
@@ -483,11 +507,14 @@ def summed(tallies: list) -> dict:
 def _summed_proofs(tallies: list) -> dict:
     """Proof records add like counts; a part without them (an older file) leaves the sum unknown."""
     if any(t.proofs is None or t.undecided_by_size is None for t in tallies):
-        return dict(proofs=None, undecided_by_size=None, undecided_nodes=0, step_bound=None)
+        return dict(proofs=None, proof_nodes=None, undecided_by_size=None, undecided_nodes=0, step_bound=None)
     proofs: dict = {}
     by_size: dict = {}
+    nodes: dict | None = {} if all(t.proof_nodes is not None for t in tallies) else None
     for t in tallies:
         _add_into(proofs, t.proofs)
         _add_into(by_size, t.undecided_by_size)
-    return dict(proofs=proofs, undecided_by_size=dict(sorted(by_size.items())),
+        if nodes is not None:
+            _add_into(nodes, t.proof_nodes)
+    return dict(proofs=proofs, proof_nodes=nodes, undecided_by_size=dict(sorted(by_size.items())),
                 undecided_nodes=sum(t.undecided_nodes for t in tallies), step_bound=tallies[0].step_bound)

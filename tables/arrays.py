@@ -78,11 +78,80 @@ def symbols_of(codes: np.ndarray, m: int, length: int) -> np.ndarray:
 SPARSE_MIN = 4096  # histograms at least this long are stored sparse when at most a quarter is non-zero
 
 
-def encode_hist(values: list) -> dict:
+class Hist:
+    """A histogram held as its non-zero entries: a run of 47 million steps has a step histogram
+    of 47 million entries, nearly all zero, which as a list would take 400 MB and seconds to
+    load. Reads like a list of exact ints (len, indexing, iteration, ==); total() and items()
+    never touch the zeros."""
+
+    __slots__ = ("n", "at", "values")
+
+    def __init__(self, n: int, at, values: list):
+        self.n = int(n)
+        self.at = np.asarray(at, dtype=np.int64)  # strictly increasing indices below n
+        self.values = [int(v) for v in values]    # exact, non-zero
+
+    @classmethod
+    def of(cls, values) -> "Hist":
+        if isinstance(values, Hist):
+            return values
+        values = list(values)
+        at = [i for i, v in enumerate(values) if v]
+        return cls(len(values), at, [values[i] for i in at])
+
+    def __len__(self) -> int:
+        return self.n
+
+    def __getitem__(self, i):
+        if isinstance(i, slice):
+            return self.tolist()[i]
+        if i < 0:
+            i += self.n
+        if not 0 <= i < self.n:
+            raise IndexError("histogram index out of range")
+        j = int(np.searchsorted(self.at, i))
+        return self.values[j] if j < len(self.at) and self.at[j] == i else 0
+
+    def items(self):
+        """(index, count) of the non-zero entries, in order."""
+        return zip(self.at.tolist(), self.values)
+
+    def total(self) -> int:
+        return sum(self.values)
+
+    def tolist(self) -> list:
+        out = [0] * self.n
+        for i, v in self.items():
+            out[i] = v
+        return out
+
+    def __iter__(self):
+        return iter(self.tolist())
+
+    def __array__(self, dtype=None, copy=None):
+        out = np.zeros(self.n, dtype=dtype or np.float64)
+        out[self.at] = self.values
+        return out
+
+    def __eq__(self, other) -> bool:
+        if isinstance(other, (Hist, list, tuple)):
+            other = Hist.of(other)
+            return self.n == other.n and self.values == other.values and np.array_equal(self.at, other.at)
+        return NotImplemented
+
+    def __repr__(self) -> str:
+        return f"Hist(n={self.n}, non-zero={len(self.values)})"
+
+
+def encode_hist(values) -> dict:
     """A histogram: {"n", "limbs", "data"} of every entry, or, for a long one that is mostly
     zero (a cap of millions of steps), {"n", "at", "limbs", "data"} of its non-zero entries only,
     "at" their indices as uint64."""
     n = len(values)
+    if isinstance(values, Hist):
+        if n >= SPARSE_MIN and 4 * len(values.values) <= n:
+            return dict(encode_counts(values.values), n=n, at=values.at.astype(U64).tobytes())
+        values = values.tolist()
     if n >= SPARSE_MIN:
         at = [i for i, v in enumerate(values) if v]
         if 4 * len(at) <= n:

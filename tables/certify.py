@@ -1,4 +1,5 @@
-"""Certified bounds of an exhaustive table (format 1.3, header field `certificate`).
+"""Certified bounds of an exhaustive table (format 1.3, header field `certificate`; 1.5 adds
+the tree nodes each proof closed, `proof_nodes`).
 
 A run's output is the span it visited (1D) or its bounding box (2D), and that
 only grows. So an undecided run that had reached size w at the cap can never
@@ -24,6 +25,7 @@ class Certificate:
     by_size: list                 # (rows, cols, weight) of the undecided weight at the cap
     nodes: int                    # undecided tree nodes
     step_bound: dict | None       # {"steps": S, "source": ...} when the bound was reached
+    proof_nodes: dict | None = None  # decider name -> tree nodes it closed (format 1.5; else None)
     _reach: dict = field(default_factory=dict, repr=False)
 
     def reach(self, shape: tuple) -> int:
@@ -51,6 +53,8 @@ def header_field(tally) -> dict | None:
         "undecided_nodes": int(tally.undecided_nodes),
         "step_bound": None,
     }
+    if tally.proof_nodes is not None:
+        out["proof_nodes"] = {name: int(n) for name, n in tally.proof_nodes.items()}
     if tally.step_bound is not None:
         steps, source = tally.step_bound
         out["step_bound"] = {"steps": steps, "source": source}
@@ -99,7 +103,15 @@ def parse(header: dict, non_halting: int, undecided: int, cap: int, dims: int = 
             raise InconsistentTableError("the certificate claims a step bound that the cap or the "
                                          "undecided total contradicts")
     nodes = _whole(cert.get("undecided_nodes", 0), "undecided_nodes")
-    return Certificate(parsed_proofs, by_size, nodes, bound)
+    proof_nodes = cert.get("proof_nodes")
+    if proof_nodes is not None:
+        if not isinstance(proof_nodes, dict) or set(proof_nodes) != set(parsed_proofs):
+            raise InconsistentTableError("the certificate's proof_nodes do not name the same proofs as its weights")
+        proof_nodes = {str(k): _whole(v, f"node count of {k!r}") for k, v in proof_nodes.items()}
+        # a node stands for at least one machine, so a proof closes no more nodes than machines
+        if any(n > parsed_proofs[k] or (n == 0) != (parsed_proofs[k] == 0) for k, n in proof_nodes.items()):
+            raise InconsistentTableError("the certificate's proof_nodes contradict its proof weights")
+    return Certificate(parsed_proofs, by_size, nodes, bound, proof_nodes)
 
 
 def bounds(c, u_key: int, u_total: int, total: int):

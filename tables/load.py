@@ -18,7 +18,7 @@ from ..enumerator.space import MAX_CAP, MAX_ENTRIES
 from ..enumerator.tally import FULL_RELABELLING_MAX
 from ..errors import InconsistentTableError, SizeLimitError, TableError
 from . import format as fmt
-from .arrays import U64, decode_counts, limbs_needed
+from .arrays import U64, Hist, decode_counts, limbs_needed
 from .table import SHIPPED, Group, Table
 
 SUFFIX = ".ctmt"
@@ -261,11 +261,13 @@ def _counts(spec, n: int, where: str, what: str) -> np.ndarray:
     return decode_counts(spec, n)
 
 
-def _hist(spec, limit: int, where: str, what: str) -> list:
+def _hist(spec, limit: int, where: str, what: str) -> Hist:
     _need(isinstance(spec, dict) and _int(spec.get("n"), 0, limit), where, f"{what} is malformed")
     n = spec["n"]
     if "at" not in spec:
-        return [int(v) for v in _counts(spec, n, where, what)]
+        values = _counts(spec, n, where, what)
+        idx = np.flatnonzero(values != 0) if values.dtype != object else [i for i, v in enumerate(values) if v]
+        return Hist(n, idx, [values[i] for i in idx])
     # since 1.4: the non-zero entries only, at strictly increasing indices below n
     at = spec["at"]
     _need(isinstance(at, bytes) and len(at) % 8 == 0 and len(at) // 8 <= n, where, f"{what} has malformed indices")
@@ -273,10 +275,9 @@ def _hist(spec, limit: int, where: str, what: str) -> list:
     _need(bool(np.all(idx < n)) and bool(np.all(idx[1:] > idx[:-1])), where,
           f"{what} has indices out of order or past its {n} entries")
     values = _counts(spec, len(idx), where, what)
-    out = [0] * n
-    for i, v in zip(idx.tolist(), values.tolist() if values.dtype != object else values):
-        out[i] = int(v)
-    return out
+    values = values.tolist() if values.dtype != object else list(values)
+    _need(all(values), where, f"{what} lists a zero entry among its non-zero ones")
+    return Hist(n, idx.astype(np.int64), values)
 
 
 def _rows_increasing(rows: np.ndarray) -> bool:
@@ -328,6 +329,8 @@ def _build(header: dict, body: dict, where: str) -> Table:
             g.moments = _counts(spec.get("moments"), n, where, f"the moments of shape {shape}")
         groups[shape] = g
     longest = max((max(s) for s in summary), default=0)
+    if header.get("cut") is not None:  # the dropped sizes stay in the histogram; a run has at most cap + 1 cells
+        longest = header["cap"] + 1
     table = Table(header, groups, _hist(body.get("hist_steps"), header["cap"] + 1, where, "the step histogram"),
                   _hist(body.get("hist_len"), longest + 1, where, "the length histogram"), source=where)
     _need(header.get("keys") == table._key_summary(), where, "the header's key summary contradicts the body")
@@ -347,5 +350,5 @@ def _build(header: dict, body: dict, where: str) -> Table:
     if table.mode == "exhaustive":
         _need(table.total == table.blanks * table.halting, where,
               "the counts do not sum to blanks x the halting total in the header")
-        _need(sum(table.hist_steps) == table.halting, where, "the step histogram contradicts the halting total")
+        _need(table.hist_steps.total() == table.halting, where, "the step histogram contradicts the halting total")
     return table

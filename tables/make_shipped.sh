@@ -26,6 +26,10 @@ ctmtab build --states 5 --symbols 2 --max-steps 500 -o tables/1d-n5-m2-t500.ctmt
     --builder "ctmtab project" --notes "$(note "500, as in the published (5,2) table")" -q
 ctmtab build --dims 2 --states 4 --symbols 2 --max-steps 2000 -o tables/2d-n4-m2-t2000.ctmt \
     --builder "ctmtab project" --notes "$(note "2000, as in the published 2D (4,2) table")" -q
+# Exact (5,2): about 51 minutes on 2 cores (README, "The exact (5,2) table").
+ctmtab build --states 5 --symbols 2 --max-steps 47176870 --budget-hours 200 \
+    -o tables/1d-n5-m2-t47176870-exact.ctmt --builder "ctmtab project" \
+    --notes "$(note "S(5) = 47,176,870, the busy beaver value: exact")" -q
 # Sampled: 10^9 machines of the 1D (4,4) space (4 symbols, as for DNA), about 5 minutes on 2 cores.
 ctmtab build --states 4 --symbols 4 --max-steps 2000 --sample 1000000000 --seed 2026 \
     -o tables/1d-n4-m4-t2000-sampled.ctmt --builder "ctmtab project" \

@@ -16,6 +16,10 @@ def merge(tables: list[Table], *, command: str = "", builder: str | None = None)
     tables of one space, cap and decider set merge when their seeds differ."""
     if len(tables) < 2:
         raise MergeError("merge needs at least two tables")
+    for t in tables:
+        if t.cut is not None:
+            raise MergeError(f"{t.source} is cut at size {t.cut.max_size}, so its dropped keys cannot be added up; "
+                             "merge or extend the uncut tables, then cut the result with ctmtab trim")
     first = tables[0]
     for t in tables[1:]:
         for key in SAME:

@@ -17,8 +17,10 @@ from ..enumerator.space import Space
 from ..enumerator.tally import relabelling, relative_sample_errors, sample_errors
 from ..errors import InconsistentTableError, MissingKeyError, RareKeyWarning, SpaceError, TableError
 from . import certify
+from . import cut as sizecut
+from .cut import DroppedKeyError
 from . import format as fmt
-from .arrays import codes_of, encode_counts, encode_hist, exact_sum, fits_code64, symbols_of
+from .arrays import Hist, codes_of, encode_counts, encode_hist, exact_sum, fits_code64, symbols_of
 
 FORMALISM = "busy-beaver: entries MOVE(write, direction, next) or HALT(write); every transition is a step"
 MISSING_POLICIES = ("raise", "nan", "fallback")
@@ -88,12 +90,14 @@ class Table:
         self.non_halting = _int_total(header, "non_halting")
         self.undecided = _int_total(header, "undecided")
         self.groups = groups
-        self.hist_steps = hist_steps
-        self.hist_len = hist_len
+        self.hist_steps = Hist.of(hist_steps)  # non-zero entries only: caps run to millions of steps
+        self.hist_len = Hist.of(hist_len)
         self._dense = {}
         self.min_seen = DEFAULT_MIN_SEEN
         self._index = {}
-        self.total = sum(exact_sum(g.counts) for g in groups.values())
+        self.cut = sizecut.parse(header, self.space.dims, self.space.symbols, self.cap, groups)
+        # the dropped weight stays in the total, so probabilities keep the true normalisation
+        self.total = sum(exact_sum(g.counts) for g in groups.values()) + (self.cut.weight if self.cut else 0)
         self.certificate = certify.parse(header, self.non_halting, self.undecided, self.cap, self.space.dims)
 
     # ---- identity and totals
@@ -196,7 +200,31 @@ class Table:
         certificate = certify.header_field(tally)
         if certificate is not None:
             header["certificate"] = certificate
+        cut = sizecut.of_tally(tally)
+        if cut is not None:
+            header["cut"] = cut.header_field()
         table = cls(header, groups, list(tally.steps_hist), list(tally.length_hist))
+        header["keys"] = table._key_summary()
+        return table
+
+    def trimmed(self, max_size: int) -> "Table":
+        """This table keeping only the keys whose longer side is at most max_size, with an exact
+        record of what it dropped (tables/cut.py). Pure Python; the counts are not rebuilt."""
+        if isinstance(max_size, bool) or not isinstance(max_size, int) or max_size < 1:
+            raise TableError(f"the size to keep must be a whole number >= 1, got {max_size!r}")
+        if self.cut is not None and max_size >= self.cut.max_size:
+            raise TableError(f"{self.source} is already cut at size {self.cut.max_size}; a cut can only "
+                             f"keep fewer sizes, so give a size below {self.cut.max_size}")
+        cut = sizecut.Cut(max_size, dict(self.cut.dropped) if self.cut else {})
+        groups = {}
+        for shape, g in self.groups.items():
+            if cut.cuts(shape):
+                cut.dropped[shape] = (exact_sum(g.counts), len(g), int(max(g.counts)))
+            else:
+                groups[shape] = g
+        header = {k: v for k, v in self.header.items() if not k.startswith("_")}
+        header["cut"] = cut.header_field()
+        table = Table(header, groups, self.hist_steps, self.hist_len, source=self.source)
         header["keys"] = table._key_summary()
         return table
 
@@ -204,6 +232,9 @@ class Table:
         """The exact tally behind this table (for merging)."""
         from ..enumerator.tally import Tally
 
+        if self.cut is not None:
+            raise TableError(f"{self.source} is cut at size {self.cut.max_size}, so its dropped keys cannot be "
+                             "added to another table's; merge or extend the uncut tables, then cut the result")
         m = self.space.symbols
         groups = {s: {row.tobytes(): int(c) for row, c in zip(self.groups[s].rows(m), self.groups[s].counts)}
                   for s in self.shapes}
@@ -221,8 +252,8 @@ class Table:
         return Tally(
             space=self.space, cap=self.cap, groups=groups, halting=self.halting,
             non_halting=self.non_halting, undecided=self.undecided,
-            halting_nodes=stats.get("halting_nodes", 0), steps_hist=list(self.hist_steps),
-            length_hist=list(self.hist_len), longest_run=stats.get("longest_run", 0),
+            halting_nodes=stats.get("halting_nodes", 0), steps_hist=self.hist_steps.tolist(),
+            length_hist=self.hist_len.tolist(), longest_run=stats.get("longest_run", 0),
             most_nonblank=stats.get("most_nonblank", 0), steps=stats.get("steps_simulated", 0),
             deciders=tuple(self.header.get("deciders", [])), units=units.get("count", 1),
             covered=None if covered == "all" else list(covered),
@@ -238,6 +269,7 @@ class Table:
             return {}
         bound = cert.step_bound
         return dict(proofs=dict(cert.proofs), undecided_by_size={(r, c): w for r, c, w in cert.by_size},
+                    proof_nodes=None if cert.proof_nodes is None else dict(cert.proof_nodes),
                     undecided_nodes=cert.nodes,
                     step_bound=None if bound is None else (bound["steps"], bound["source"]))
 
@@ -351,9 +383,34 @@ class Table:
         return shape, int(self._position(shape, row[None, :])[0])
 
     def count(self, key) -> int:
-        """Exact count of runs (machine, blank) with this output; 0 if never produced."""
+        """Exact count of runs (machine, blank) with this output; 0 if never produced. A key of a
+        shape this table cut raises DroppedKeyError: its count is bounded, not known."""
         shape, pos = self._find(key)
+        self._refuse_dropped(key, shape)
         return 0 if pos < 0 else int(self.groups[shape].counts[pos])
+
+    # ---- the size cut (tables/cut.py)
+    def dropped(self, shape) -> bool:
+        """Whether this table cut the keys of this shape (they are counted only in total)."""
+        return self.cut is not None and self.cut.cuts(tuple(shape))
+
+    def dropped_bound(self, shape) -> float:
+        """A lower bound on the CTM of any key of a cut shape: its count is at most the shape's
+        largest dropped count (plus, exhaustive, the undecided runs that could still reach it).
+        Certified for exhaustive tables; from the sample's counts for sampled ones."""
+        most = self.cut.most(tuple(shape))
+        if self.mode == "sampled":
+            return math.log2(self.total) - math.log2(most) if most else math.inf
+        low, _ = certify.bounds(most, self.undecided_reach(shape), self.undecided_runs, self.total)
+        return float(low)
+
+    def _refuse_dropped(self, key, shape) -> None:
+        if self.dropped(shape):
+            size = "x".join(map(str, shape))
+            raise DroppedKeyError(
+                f"key {key!r} has size {size}, which this table cut (it keeps keys up to size "
+                f"{self.cut.max_size}); its CTM is at least {self.dropped_bound(shape):.4f} bits. "
+                "Use blocks of at most that size, or a table cut at a larger size")
 
     def probability(self, key) -> float:
         self.require_halting()
@@ -383,6 +440,8 @@ class Table:
     def ctm(self, key, missing: str = "raise") -> float:
         """CTM(key) = -log2 D(key) in bits."""
         self.require_halting()
+        if missing == "nan" and self.dropped(self._parse_key(key)[0]):
+            return math.nan
         c = self.count(key)
         if c == 0:
             return self._missing(key, missing)
@@ -394,6 +453,9 @@ class Table:
         in [c, c + U] and the true halting total in [H, H + U], U = undecided runs).
         Sampled tables: an approximate 95% interval from the standard error (not certified)."""
         self.require_halting()
+        shape = self._parse_key(key)[0]
+        if self.dropped(shape):  # bounded below only
+            return self.dropped_bound(shape), math.inf
         if self.mode == "sampled":
             c = self.count(key)
             if c == 0:  # never seen in H halting samples: p <= 3/H at 95% (the rule of three)
@@ -504,12 +566,18 @@ class Table:
                 batches.setdefault(s, ([], None))[0].append(i)
             batches = {s: (np.array(idx), np.stack([parsed[i][1] for i in idx])) for s, (idx, _) in batches.items()}
         counts, moments = np.zeros(n), np.zeros(n)
+        cut = np.zeros(n, dtype=bool)
         for shape, (idx, rows) in batches.items():
             where = slice(None) if idx is None else idx
+            if self.dropped(shape):  # bounded, not known: NaN, never a made-up value
+                if missing != "nan":
+                    self._refuse_dropped(self.key_text(shape, rows[0]), shape)
+                counts[where], cut[where] = np.nan, True
+                continue
             counts[where] = self._counts_of(shape, rows)
             if self.mode == "sampled":
                 moments[where] = self._moments_of(shape, rows)
-        with np.errstate(divide="ignore"):
+        with np.errstate(divide="ignore", invalid="ignore"):
             ctm = math.log2(self.total) - np.log2(counts)
         absent = counts == 0
         if absent.any():
@@ -521,7 +589,17 @@ class Table:
             reach = np.zeros(n)
             for shape, (idx, _) in batches.items():
                 reach[slice(None) if idx is None else idx] = float(self.undecided_reach(shape))
-            out["ctm_low"], out["ctm_high"] = certify.bounds(counts, reach, self.undecided_runs, self.total)
+            with np.errstate(invalid="ignore"):
+                out["ctm_low"], out["ctm_high"] = certify.bounds(counts, reach, self.undecided_runs, self.total)
+        if self.cut is not None:
+            out["dropped"] = cut
+            if cut.any():
+                low = out.setdefault("ctm_low", np.full(n, np.nan))
+                high = out.setdefault("ctm_high", np.full(n, np.nan))
+                for shape, (idx, _) in batches.items():
+                    if self.dropped(shape):
+                        where = slice(None) if idx is None else idx
+                        low[where], high[where] = self.dropped_bound(shape), np.inf
         if self.mode == "sampled":
             with np.errstate(divide="ignore", invalid="ignore"):
                 out["standard_error"] = np.where(counts > 0, self._errors(counts, moments), np.nan)
@@ -598,6 +676,7 @@ class Table:
                              f"keys, over {MAX_DENSE:,}; use lookup() instead")
         if missing not in ("nan", "fallback"):
             raise TableError("a dense view needs missing='nan' or 'fallback'")
+        self._refuse_dropped(f"(every key of shape {'x'.join(map(str, shape))})", shape)
         self.require_halting()
 
         def make():  # in place on a fresh count array: one array of m^cells floats at a time
@@ -655,6 +734,10 @@ class Table:
             "stats": self.header.get("stats", {}),
             "deciders": self.header.get("deciders", []),
             "certificate": self._certificate_summary(),
+            "cut": None if self.cut is None else {
+                "max_size": self.cut.max_size, "dropped_keys": self.cut.keys, "dropped_weight": self.cut.weight,
+                "dropped": [{"shape": "x".join(map(str, sh)), "weight": w, "keys": k, "largest_count": top}
+                            for sh, (w, k, top) in sorted(self.cut.dropped.items())]},
             "format": self.header.get("_format", [fmt.MAJOR, fmt.MINOR]),
             "generator": self.header.get("generator", {}),
             "build": self.header.get("build", {}),
@@ -667,7 +750,8 @@ class Table:
         if cert is None or self.mode != "exhaustive":
             return None
         return {"exact": self.exact, "step_bound": cert.step_bound, "undecided_nodes": cert.nodes,
-                "proofs": dict(cert.proofs), "widest_interval_by_shape": self.interval_widths()}
+                "proofs": dict(cert.proofs), "proof_nodes": cert.proof_nodes,
+                "widest_interval_by_shape": self.interval_widths()}
 
     def _sample_summary(self) -> dict:
         """Per output size (1D length, 2D longer side): keys seen, the median and worst relative
@@ -717,7 +801,7 @@ class Table:
     def to_json(self) -> dict:
         meta = {k: v for k, v in self.header.items() if k not in ("body",) and not k.startswith("_")}
         return {"meta": meta, "counts": dict(self.items()),
-                "hist_steps": self.hist_steps, "hist_len": self.hist_len}
+                "hist_steps": self.hist_steps.tolist(), "hist_len": self.hist_len.tolist()}
 
 
 def _interval95(p, se):

@@ -25,9 +25,9 @@ def problems(table: Table) -> list[str]:
         out.append(f"the recorded space size {t.space_size} is not {t.space.label}'s {t.space.size}")
     if t.total != per_run * t.halting:
         out.append(f"the counts sum to {t.total}, not {per_run} x halting = {per_run * t.halting}")
-    if sum(t.hist_steps) != t.halting:
+    if t.hist_steps.total() != t.halting:
         out.append("the halting-step histogram does not sum to the halting total")
-    if sum(t.hist_len) != t.halting:
+    if t.hist_len.total() != t.halting:
         out.append("the output-size histogram does not sum to the halting total")
     if len(t.hist_steps) > t.cap + 1:
         out.append(f"the step histogram reaches past the cap {t.cap}")
@@ -37,6 +37,12 @@ def problems(table: Table) -> list[str]:
         out += [f"shape {shape}: {p}" for p in _closure(t, shape)]
         if t.mode == "sampled":
             out += [f"shape {shape}: {p}" for p in _moments(t, shape)]
+    if t.cut is not None:  # the dropped weight is still in the size histogram, size by size
+        for shape, (weight, keys, top) in t.cut.dropped.items():
+            by_size[max(shape)] = by_size.get(max(shape), 0) + weight
+            turned = shape[::-1]
+            if t.space.dims == 2 and t.cut.dropped.get(turned) != (weight, keys, top):
+                out.append(f"the cut's record of shape {shape} differs from that of its rotation {turned}")
     for size, total in sorted(by_size.items()):
         if size >= len(t.hist_len) or total != per_run * t.hist_len[size]:
             out.append(f"size {size}: the counts disagree with the output-size histogram")

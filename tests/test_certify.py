@@ -390,3 +390,66 @@ def test_row_cps_proofs_in_2d_survive_a_long_run():
         mach, _, _, size = line.split()
         assert size.startswith("1x") and not reaches_undefined_2d(mach, 20_000), line
     assert with_cps.halting == without.halting
+
+
+# ---- tree nodes per proof (format 1.5)
+
+def test_proof_node_counts_do_not_depend_on_the_split_or_the_executor():
+    space = Space(1, 4, 2)
+    runs = [build(space, 40, split_depth=d, workers=w) for d, w in ((1, 1), (4, 1), (3, 2))]
+    nodes = [t.proof_nodes for t in runs]
+    assert nodes[0] == nodes[1] == nodes[2]
+    t = runs[0]
+    for name, n in t.proof_nodes.items():  # a node stands for at least one machine
+        assert (n == 0) == (t.proofs[name] == 0) and n <= t.proofs[name]
+    # every node that did not halt was closed by one proof or left undecided: the cap-107 build
+    # (exact by S(4) = 107) proves more with the step bound but the same nodes did not halt
+    # up to the step each stopped at, so the count only grows with the cap
+    exact = build(space, 107)
+    assert sum(exact.proof_nodes.values()) >= sum(t.proof_nodes.values())
+    assert exact.proof_nodes["step-bound"] > 0 and exact.undecided_nodes == 0
+
+
+def test_a_spool_record_without_node_counts_leaves_them_unknown_not_zero():
+    from ctmtab.enumerator.tally import Partial
+    unit = _core.run_unit(1, 2, 2, 6, 0, (), -1, False)
+    unit.pop("cuts", None)
+    old = {k: v for k, v in unit.items() if k != "proven_nodes"}
+    part = Partial()
+    part.add(unit)
+    assert part.proven_nodes is not None
+    part.add(old)
+    assert part.proven_nodes is None
+
+
+@pytest.mark.parametrize("edit, fragment", [
+    (lambda c: c["proof_nodes"].pop("cycler"), "same proofs"),
+    (lambda c: c["proof_nodes"].update(cycler=str(10**30)), "contradict"),
+    (lambda c: c["proof_nodes"].update(escapee=0), "contradict"),
+    (lambda c: c["proof_nodes"].update(escapee="x"), "whole number"),
+    (lambda c: c.update(proof_nodes=[1, 2]), "same proofs"),
+])
+def test_resealed_proof_node_counts_that_contradict_the_weights_are_refused(edit, fragment):
+    from ctmtab.tables import loads
+
+    from hostile import with_header
+    data = Table.from_tally(build(Space(1, 3, 2), 21)).to_bytes()
+    with pytest.raises(InconsistentTableError, match=fragment):
+        loads(with_header(data, lambda h: edit(h["certificate"])))
+
+
+def test_sparse_histograms_read_like_the_lists_they_stand_for():
+    from ctmtab.tables.arrays import Hist
+    rng = np.random.default_rng(5)
+    for n in (0, 1, 7, 5000):
+        dense = [int(x) if rng.random() < 0.1 else 0 for x in rng.integers(1, 2**62, n)]
+        h = Hist.of(dense)
+        assert len(h) == n and h.tolist() == dense and list(h) == dense and h == dense
+        assert h.total() == sum(dense) and [h[i] for i in range(n)] == dense
+        assert np.array_equal(np.asarray(h), np.asarray(dense, dtype=float))
+        if n:
+            assert h[-1] == dense[-1] and h[1:4] == dense[1:4]
+        with pytest.raises(IndexError):
+            h[n]
+    big = [0] * 10 + [2**70]
+    assert Hist.of(big).total() == 2**70 and Hist.of(big)[10] == 2**70

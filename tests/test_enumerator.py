@@ -1,4 +1,5 @@
 """The exhaustive 1D enumerator against published values and its own symmetries."""
+import numpy as np
 import pytest
 
 from ctmtab.enumerator import DECIDERS, Space, build
@@ -215,3 +216,11 @@ def test_shipped_exact_five_state_table():
     exact = dict(t.items())
     assert all(exact.get(k, 0) >= c for k, c in short.items())
     assert t.halting > short.halting and problems(t) == []
+    # the cap-500 certificate must hold against the exact values: every exact CTM lies in the
+    # certified interval of the short table, and a key the short table never produced has an
+    # exact CTM at or above the lower bound the short table gave for it
+    keys = list(exact)
+    truth = np.log2(t.total) - np.log2(np.array([exact[k] for k in keys], dtype=float))
+    got = short.lookup(keys, missing="nan")
+    assert np.all(got["ctm_low"] <= truth + 1e-9) and np.all(truth <= got["ctm_high"] + 1e-9)
+    assert np.count_nonzero(got["count"] == 0) > 0  # some keys appear only after step 500

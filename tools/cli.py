@@ -97,6 +97,9 @@ def _parser() -> argparse.ArgumentParser:
                    help="refuse builds estimated above this many CPU-hours; default 24")
     p.add_argument("--holdouts", metavar="FILE",
                    help="write every undecided node, one line each: machine, weight, step, size")
+    p.add_argument("--keep-size", type=int, default=None, metavar="K",
+                   help="keep only keys whose size (2D: longer side) is at most K, with an exact record of "
+                        "the weight dropped per size (see trim); default every key")
     p.add_argument("--notes", default="", help="free text stored in the header")
     p.add_argument("--builder", default=None,
                    help="who built it, stored in the header; default $CTMTAB_BUILDER, else nothing")
@@ -118,6 +121,12 @@ def _parser() -> argparse.ArgumentParser:
     p = sub.add_parser("verify", help="check checksums, invariants and symmetry closure")
     p.add_argument("tables", nargs="+")
     p.add_argument("--json", action="store_true")
+
+    p = sub.add_parser("trim", help="keep the keys up to a size, with an exact record of the rest")
+    p.add_argument("table")
+    p.add_argument("--keep-size", type=int, required=True, metavar="K",
+                   help="keep keys whose size (2D: longer side) is at most K")
+    p.add_argument("-o", "--output", help="file to write; default <table>-upto<K>.ctmt here")
 
     p = sub.add_parser("merge", help="combine tables of one build into one")
     p.add_argument("-o", "--output", required=True)
@@ -290,6 +299,11 @@ def cmd_build(a) -> int:
         raise CtmtabError("--shard splits exhaustive builds; give sampled shards their own --seed instead")
     if a.until and not sampled:
         raise CtmtabError("--until needs a sampled build")
+    if a.keep_size is not None and a.keep_size < 1:
+        raise CtmtabError(f"--keep-size must be 1 or more, got {a.keep_size}")
+    if a.keep_size is not None and (shard or base is not None):
+        raise CtmtabError("--keep-size cannot cut a shard or an extended table (cut keys cannot be added "
+                          "up later); build or merge the whole table, then run ctmtab trim")
     seed = 1 if a.seed is None else a.seed
     stem = f"ctm-{space.dims}d-n{space.states}-m{space.symbols}-t{cap}" + (f"-s{seed}" if sampled else "")
     if base is not None and not a.output and not Path(a.extend).is_file():
@@ -318,7 +332,7 @@ def cmd_build(a) -> int:
         else:
             tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, workers=workers,
                           scheduler=a.scheduler, shard=shard, spool=spool, budget_hours=a.budget_hours,
-                          on_progress=bar, holdouts=a.holdouts is not None)
+                          on_progress=bar, holdouts=a.holdouts is not None, max_size=a.keep_size)
     finally:
         bar.close()
     if getattr(tally, "spool_damaged", 0):
@@ -336,6 +350,8 @@ def cmd_build(a) -> int:
             table.header["build"]["until"] = tally.until
     else:
         table = Table.from_tally(tally, command=_command(), notes=a.notes, builder=a.builder)
+        if sampled and a.keep_size is not None:
+            table = table.trimmed(a.keep_size)
     table.header["build"]["resumed_units"] = tally.resumed
     table.header["build"]["workers"] = "dask" if a.scheduler else workers
     try:
@@ -405,6 +421,11 @@ def cmd_info(a) -> int:
     ]
     if s["notes"]:
         lines.append(f"  notes      {s['notes']}")
+    if t.cut is not None:
+        c = t.cut
+        lines.insert(4, f"  cut        keys up to size {c.max_size} kept; {c.keys:,} keys of {len(c.dropped)} longer shapes "
+                        f"dropped ({_percent(c.weight / t.total) if t.total else '0%'} of the counts, kept in the "
+                        "total); lookups of them give a lower bound")
     if t.mode == "exhaustive":
         lines += _certificate_lines(t)
     if t.mode == "sampled":
@@ -425,6 +446,17 @@ def cmd_info(a) -> int:
     return 0
 
 
+def _node_funnel(cert) -> str:
+    """Tree nodes left undecided after each proof in turn, from every node that did not halt."""
+    left = sum(cert.proof_nodes.values()) + cert.nodes
+    steps = [f"{left:,} did not halt"]
+    for name, n in cert.proof_nodes.items():
+        if n:
+            left -= n
+            steps.append(f"{name} {left:,}")
+    return " -> ".join(steps) + " left"
+
+
 def _certificate_lines(t) -> list:
     """What was proven, what remains undecided, and the widest certified interval per size."""
     cert = t.certificate
@@ -439,6 +471,8 @@ def _certificate_lines(t) -> list:
         out.append(f"  undecided  {cert.nodes:,} tree nodes remain (list them with build --holdouts)")
     proofs = ", ".join(f"{name} {w:,}" for name, w in cert.proofs.items() if w)
     out.append(f"  proofs     {proofs or 'none'}")
+    if cert.proof_nodes is not None:
+        out.append("  nodes      " + _node_funnel(cert))
     widths = t.interval_widths()
     if widths:
         out.append("  widest certified interval by size (bits): " + ", ".join(
@@ -455,6 +489,11 @@ def cmd_lookup(a) -> int:
     t.min_seen = a.min_seen
     rows, rare = [], []
     for key in a.keys:
+        shape = t._parse_key(key)[0]
+        if t.dropped(shape):  # cut from the table: a bound, never a value
+            rows.append({"key": key, "dropped": True, "count": None, "probability": None, "ctm": None,
+                         "ctm_low": t.dropped_bound(shape), "ctm_high": math.inf})
+            continue
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always", RareKeyWarning)
             c = t.count(key)
@@ -474,6 +513,11 @@ def cmd_lookup(a) -> int:
         print(f"{'key':<20} {'count':>22} {'probability':>12}" + (f" {'std error':>10}" if sampled else "")
               + f" {'CTM bits':>10}  {kind}")
         for r in rows:
+            if r.get("dropped"):
+                print(f"{r['key']:<20} {'dropped (size cut)':>22} {'':>12}" + (f" {'':>10}" if sampled else "")
+                      + f" {'':>10}  CTM >= {r['ctm_low']:.4f}"
+                      + (" (certified)" if not sampled else " (from the sample)"))
+                continue
             print(f"{r['key']:<20} {r['count']:>22,} {r['probability']:>12.6g}"
                   + (f" {r['standard_error']:>10.3g}" if sampled else "")
                   + f" {r['ctm']:>10.4f}  [{r['ctm_low']:.4f}, {r['ctm_high']:.4f}]")
@@ -505,6 +549,20 @@ def cmd_verify(a) -> int:
     if a.json:
         _emit(report, True, "")
     return worst
+
+
+def cmd_trim(a) -> int:
+    from ..tables import load
+
+    t = load(a.table)
+    out = a.output or f"{Path(a.table).name.removesuffix('.ctmt')}-upto{a.keep_size}.ctmt"
+    cut = t.trimmed(a.keep_size)
+    cut.save(out)
+    c = cut.cut
+    print(f"{out}: kept {cut.distinct:,} keys up to size {c.max_size}, dropped {c.keys:,} keys of "
+          f"{len(c.dropped)} shapes ({_percent(c.weight / cut.total) if cut.total else '0%'} of the counts)",
+          file=sys.stderr)
+    return 0
 
 
 def cmd_merge(a) -> int:
@@ -607,7 +665,7 @@ def cmd_demo(a) -> int:
 
 
 COMMANDS = {"validate": cmd_validate, "plot": cmd_plot, "demo": cmd_demo, "build": cmd_build, "info": cmd_info, "lookup": cmd_lookup, "verify": cmd_verify,
-            "merge": cmd_merge, "export": cmd_export, "run": cmd_run}
+            "merge": cmd_merge, "trim": cmd_trim, "export": cmd_export, "run": cmd_run}
 
 
 _OS_HINTS = {

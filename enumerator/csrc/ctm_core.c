@@ -46,6 +46,7 @@ int ctm_unit_init(ctm_unit *u) {
     memset(u->save_buf, 0, sizeof u->save_buf);
     memset(u->save_cap, 0, sizeof u->save_cap);
     memset(u->proven, 0, sizeof u->proven);
+    memset(u->proven_nodes, 0, sizeof u->proven_nodes);
     if (u->dims != 1 && u->dims != 2) return CTM_EINVAL;
     if (u->n < 1 || u->m < 2 || u->cap < 1 || u->n * u->m > CTM_MAX_ENTRIES || u->m > 255)
         return CTM_EINVAL;

@@ -7,7 +7,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define CTM_API_VERSION 3
+#define CTM_API_VERSION 4
 
 #define CTM_OK 0
 #define CTM_ENOMEM (-1)    /* an allocation failed */
@@ -102,6 +102,7 @@ typedef struct {
     ctm_map raw;         /* key = flag byte (class | symbols in use << 2) + output symbols */
     ctm_count halting, non_halting, undecided;
     ctm_count proven[CTM_DEC_COUNT]; /* non-halting weight by the proof that gave it */
+    uint64_t proven_nodes[CTM_DEC_COUNT]; /* tree nodes each proof closed */
     ctm_map undec;       /* undecided weight by size at the cap: key uint32 rows, uint32 cols */
     int keep_holdouts;   /* != 0: list every undecided node in holdouts */
     uint8_t *holdouts;   /* records of CTM_HOLDOUT_BYTES(nent) bytes */

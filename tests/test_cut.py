@@ -1,0 +1,166 @@
+"""Tables cut by size (format 1.5, tables/cut.py): what is kept is the uncut table's, what is
+dropped is recorded exactly, and a dropped key is reported with a certified lower bound, never
+a value. The uncut tables are the reference: their exact counts decide every check."""
+import math
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from ctmtab.enumerator import Space, build
+from ctmtab.errors import InconsistentTableError, MergeError, TableError
+from ctmtab.tables import Table, load, loads, problems
+from ctmtab.tables.cut import DroppedKeyError
+from ctmtab.tools.bdm import BDM
+
+from hostile import with_header
+
+pytestmark = pytest.mark.core
+
+
+def cli(*args, cwd=None):
+    return subprocess.run([sys.executable, "-m", "ctmtab", *map(str, args)], capture_output=True, text=True,
+                          timeout=120, cwd=cwd)
+
+
+def _record(full: Table, max_size: int) -> dict:
+    """The dropped record, computed from the uncut table's keys by plain Python."""
+    out = {}
+    for key, c in full.items():
+        shape = (len(key),) if full.space.dims == 1 else (key.count("/") + 1, len(key.split("/")[0]))
+        if max(shape) > max_size:
+            w, k, top = out.get(shape, (0, 0, 0))
+            out[shape] = (w + c, k + 1, max(top, c))
+    return out
+
+
+@pytest.fixture(scope="module")
+def full32():
+    return Table.from_tally(build(Space(1, 3, 2), 21))
+
+
+@pytest.mark.parametrize("max_size", [1, 4, 6])
+def test_a_cut_build_keeps_the_uncut_counts_and_records_the_rest_exactly(full32, max_size):
+    cut = Table.from_tally(build(Space(1, 3, 2), 21, max_size=max_size))
+    kept = {k: c for k, c in full32.items() if len(k) <= max_size}
+    assert dict(cut.items()) == kept
+    assert cut.cut.dropped == _record(full32, max_size)
+    assert cut.total == full32.total  # normalised by the true total
+    for key in list(kept)[:50]:
+        assert cut.ctm(key) == full32.ctm(key) and cut.interval(key) == full32.interval(key)
+    # trimming the uncut table gives the same file content as cutting during the build
+    trimmed = full32.trimmed(max_size)
+    assert trimmed.header["cut"] == cut.header["cut"] and trimmed.body() == cut.body()
+    back = loads(cut.to_bytes())
+    assert problems(back) == [] and back.cut.dropped == cut.cut.dropped
+
+
+def test_a_dropped_key_gets_a_certified_lower_bound_never_a_value(full32):
+    cut = full32.trimmed(4)
+    for key, c in full32.items():
+        if len(key) > 4:
+            low, high = cut.interval(key)
+            assert low <= full32.ctm(key) + 1e-12 and high == math.inf
+    # the bound is the shape's largest count: tight for the commonest key of each length
+    for shape, (_, _, top) in cut.cut.dropped.items():
+        commonest = max((c for k, c in full32.items() if len(k) == shape[0]))
+        assert top == commonest
+    with pytest.raises(DroppedKeyError, match="cut"):
+        cut.count("01010")
+    with pytest.raises(DroppedKeyError, match="at most that size"):
+        cut.ctm("01010")
+    with pytest.raises(DroppedKeyError):
+        cut.ctm("01010", missing="fallback")  # a fallback would be a made-up value
+    assert math.isnan(cut.ctm("01010", missing="nan"))
+    out = cut.lookup(["0110", "01010", "0"])
+    assert out["dropped"].tolist() == [False, True, False]
+    assert math.isnan(out["ctm"][1]) and math.isnan(out["count"][1])
+    assert out["ctm_low"][1] <= full32.ctm("01010") and out["ctm_high"][1] == math.inf
+    assert out["ctm"][0] == full32.ctm("0110")
+    with pytest.raises(DroppedKeyError):
+        cut.lookup(["01010"], missing="raise")
+    with pytest.raises(DroppedKeyError):
+        cut.dense(5)
+    assert np.array_equal(cut.dense(4), full32.dense(4))
+
+
+def test_bounds_of_a_capped_cut_table_hold_against_the_exact_table():
+    # at cap 30 the (4,2) table leaves runs undecided; the certified lower bound of a dropped
+    # key must still lie below its exact CTM from the cap-107 table (exact by S(4) = 107)
+    exact = load("1d-n4-m2-t107")
+    capped = Table.from_tally(build(Space(1, 4, 2), 30, max_size=7))
+    assert capped.undecided > 0
+    for key, c in exact.items():
+        if len(key) > 7 and capped.cut.most((len(key),)):
+            assert capped.interval(key)[0] <= exact.ctm(key) + 1e-12, key
+
+
+def test_a_cut_2d_table_verifies_and_keeps_its_rotations():
+    full = load("2d-n3-m2-t2000")
+    cut = full.trimmed(3)
+    assert max(max(s) for s in cut.shapes) == 3 and problems(cut) == []
+    assert cut.cut.dropped == _record(full, 3)
+    for (r, c), rec in cut.cut.dropped.items():
+        assert cut.cut.dropped[(c, r)] == rec
+    assert cut.interval("0000/0000")[0] <= full.ctm("0000/0000")
+
+
+def test_cutting_again_only_keeps_fewer_sizes(full32):
+    once = full32.trimmed(6)
+    twice = once.trimmed(3)
+    assert twice.cut.dropped == full32.trimmed(3).cut.dropped and twice.total == full32.total
+    with pytest.raises(TableError, match="already cut at size 6"):
+        once.trimmed(6)
+    with pytest.raises(TableError, match="whole number"):
+        full32.trimmed(0)
+
+
+def test_cut_tables_are_not_merged_or_extended(full32):
+    from ctmtab.tables import merge
+    with pytest.raises(MergeError, match="merge or extend the uncut tables"):
+        merge([full32.trimmed(4), full32.trimmed(4)])
+
+
+def test_bdm_uses_a_cut_table_up_to_its_size_and_refuses_longer_blocks(full32):
+    cut = full32.trimmed(4)
+    s = "0110100110010110"
+    assert BDM(cut, block=4)(s) == BDM(full32, block=4)(s)
+    with pytest.raises(DroppedKeyError):
+        BDM(cut, block=5, missing="fallback")(s)
+
+
+@pytest.mark.parametrize("edit, fragment", [
+    (lambda h: h["cut"].update(max_size=0), "cannot mean"),
+    (lambda h: h["cut"]["dropped"][0].__setitem__(0, [2]), "which it keeps"),
+    (lambda h: h["cut"]["dropped"].append(h["cut"]["dropped"][0]), "twice"),
+    (lambda h: h["cut"]["dropped"][0].__setitem__(3, "0"), "impossible"),
+    (lambda h: h["cut"]["dropped"][0].__setitem__(2, 0), "impossible"),
+    (lambda h: h["cut"]["dropped"][0].__setitem__(1, str(10**30)), "impossible"),
+    (lambda h: h["cut"].update(max_size=2), "past its cut"),
+    (lambda h: h["cut"].update(dropped="all"), "malformed"),
+    (lambda h: h["cut"]["dropped"].pop(), "sum"),
+])
+def test_resealed_cut_records_with_absurd_content_are_refused(full32, edit, fragment):
+    data = full32.trimmed(4).to_bytes()
+    with pytest.raises(InconsistentTableError, match=fragment):
+        loads(with_header(data, edit))
+
+
+def test_the_command_line_trims_and_reports_dropped_keys(tmp_path):
+    r = cli("trim", "1d-n4-m2-t107", "--keep-size", "8", cwd=tmp_path)
+    assert r.returncode == 0 and "dropped 1,322 keys" in r.stderr, r.stderr
+    out = tmp_path / "1d-n4-m2-t107-upto8.ctmt"
+    assert out.is_file()
+    r = cli("lookup", out, "0110", "000000000")
+    assert r.returncode == 0 and "dropped (size cut)" in r.stdout and "(certified)" in r.stdout
+    r = cli("info", out)
+    assert "keys up to size 8 kept" in r.stdout
+    r = cli("trim", out, "--keep-size", "9")
+    assert r.returncode != 0 and "already cut at size 8" in r.stderr and "Traceback" not in r.stderr
+    r = cli("build", "--states", "2", "--keep-size", "3", "--shard", "0/2", "-o", tmp_path / "x.ctmt")
+    assert r.returncode != 0 and "--keep-size cannot cut a shard" in r.stderr
+    r = cli("build", "--states", "2", "--keep-size", "0", "-o", tmp_path / "x.ctmt")
+    assert r.returncode != 0 and "--keep-size must be 1 or more" in r.stderr
+    r = cli("verify", out)
+    assert r.returncode == 0
