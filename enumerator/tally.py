@@ -136,9 +136,11 @@ def _share(weight: int, images: int, used: int) -> int:
 def expand_raw(space: Space, raw: dict, max_size: int | None = None, dropped: dict | None = None) -> dict:
     """Exhaustive raw outputs (flag byte + symbols -> weight on blank 0) -> shape -> {key: count}
     over every run: mirror (1D) or dihedral (2D) images of the output's class, times its symbol
-    maps. Vectorised: one sort per output shape; sorted by shape, then key. With max_size, a
-    shape whose longer side passes it keeps only its record in `dropped`: shape -> (weight,
-    keys, largest count), and never becomes a dict of keys."""
+    maps. Vectorised: one sort per output shape; sorted by shape, then key. One shape's images
+    exist at a time (they come from raw outputs of that shape or, in 2D, its transpose), so the
+    memory peak is the largest shape's, not the whole table's. With max_size, a shape whose
+    longer side passes it keeps only its record in `dropped`: shape -> (weight, keys, largest
+    count), and never becomes a dict of keys."""
     m = space.symbols
     by_kind: dict = {}
     for key, w in raw.items():
@@ -147,39 +149,46 @@ def expand_raw(space: Space, raw: dict, max_size: int | None = None, dropped: di
             shape, cells = (len(key) - 1,), key[1:]
         else:
             shape, cells = (key[1] | key[2] << 8, key[3] | key[4] << 8), key[5:]
-        bodies, ws = by_kind.setdefault((cls, used, shape), ([], []))
+        bodies, ws = by_kind.setdefault((shape, cls, used), ([], []))
         bodies.append(cells)
         ws.append(w)
     # every count is at most blanks x halting <= m x the space size: int64 sums while that fits
     wide = m * space.size >= 1 << 62
-    images: dict = {}  # image shape -> [(rows, weight per row)]
-    for (cls, used, shape), (bodies, ws) in by_kind.items():
-        k = len(bodies)
-        grids = np.frombuffer(b"".join(bodies), dtype=np.uint8).reshape(k, *shape)
+    kinds: dict = {}  # raw shape -> [(cls, used, grids, shares)]
+    for (shape, cls, used), (bodies, ws) in sorted(by_kind.items()):
+        grids = np.frombuffer(b"".join(bodies), dtype=np.uint8).reshape(len(bodies), *shape)
         if used and int(grids.max()) > used:
             raise InvariantError(f"a raw output uses a symbol past the {used} in use; this is a bug")
-        perms, count = symbol_maps(m, used)
+        count = symbol_maps(m, used)[1]
         shares = np.array([_share(w, count, used) for w in ws], dtype=object if wide else np.int64)
-        if space.dims == 1:
-            imgs = [grids, grids[:, ::-1]] if cls else [grids]
-        else:
-            imgs = dihedral_images(grids, cls)
-        for img in imgs:
-            flat = img.reshape(k, -1)
-            for perm in perms:
-                images.setdefault(tuple(img.shape[1:]), []).append((perm[flat], shares))
+        kinds.setdefault(shape, []).append((cls, used, grids, shares))
+    del by_kind
+    targets = sorted(set(kinds) | ({s[::-1] for s in kinds} if space.dims == 2 else set()))
     out = {}
-    for shape in sorted(images):
-        parts = images.pop(shape)  # one shape's images at a time
-        rows = np.ascontiguousarray(np.concatenate([r for r, _ in parts]))
-        weights = np.concatenate([w for _, w in parts])
-        del parts
+    for shape in targets:
+        rows, weights = [], []
+        for source in {shape, shape[::-1]} if space.dims == 2 else {shape}:
+            for cls, used, grids, shares in kinds.get(source, []):
+                if space.dims == 1:
+                    imgs = [grids, grids[:, ::-1]] if cls else [grids]
+                else:
+                    imgs = [g for g in dihedral_images(grids, cls) if tuple(g.shape[1:]) == shape]
+                for img in imgs:
+                    flat = img.reshape(len(img), -1)
+                    for perm in symbol_maps(m, used)[0]:
+                        rows.append(perm[flat])
+                        weights.append(shares)
+        if not rows:
+            continue
+        rows = np.ascontiguousarray(np.concatenate(rows))
+        weights = np.concatenate(weights)
         keys, inverse = np.unique(rows.view(np.dtype((np.void, rows.shape[1]))).ravel(), return_inverse=True)
         del rows
         order = np.argsort(inverse.reshape(-1), kind="stable")
         ids = inverse.reshape(-1)[order]
         starts = np.flatnonzero(np.r_[True, ids[1:] != ids[:-1]])
         sums = np.add.reduceat(weights[order], starts)
+        del order, ids, weights
         if max_size is not None and size_of(shape) > max_size:
             dropped[shape] = (int(sums.sum()), len(sums), int(sums.max()))
             continue

@@ -53,7 +53,8 @@ class Cut:
 
 
 def of_tally(tally) -> Cut | None:
-    return None if tally.max_size is None else Cut(tally.max_size, dict(tally.dropped))
+    # no output is longer than cap + 1 cells: a larger size keeps everything, and says so
+    return None if tally.max_size is None else Cut(min(tally.max_size, tally.cap + 1), dict(tally.dropped))
 
 
 def _whole(v, what: str) -> int:

@@ -215,7 +215,8 @@ class Table:
         if self.cut is not None and max_size >= self.cut.max_size:
             raise TableError(f"{self.source} is already cut at size {self.cut.max_size}; a cut can only "
                              f"keep fewer sizes, so give a size below {self.cut.max_size}")
-        cut = sizecut.Cut(max_size, dict(self.cut.dropped) if self.cut else {})
+        # no output is longer than cap + 1 cells: a larger size keeps everything, and says so
+        cut = sizecut.Cut(min(max_size, self.cap + 1), dict(self.cut.dropped) if self.cut else {})
         groups = {}
         for shape, g in self.groups.items():
             if cut.cuts(shape):

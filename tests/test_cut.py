@@ -164,3 +164,21 @@ def test_the_command_line_trims_and_reports_dropped_keys(tmp_path):
     assert r.returncode != 0 and "--keep-size must be 1 or more" in r.stderr
     r = cli("verify", out)
     assert r.returncode == 0
+
+
+def test_a_size_past_any_output_keeps_everything_and_still_loads(full32):
+    whole = full32.trimmed(10**9)
+    assert whole.cut.max_size == 22 and whole.cut.dropped == {}  # cap 21: at most 22 cells
+    back = loads(whole.to_bytes())
+    assert dict(back.items()) == dict(full32.items()) and problems(back) == []
+
+
+def test_a_sampled_table_cut_keeps_its_errors_and_reports_dropped_keys():
+    s = load("1d-n4-m4-t2000-sampled")
+    cut = s.trimmed(5)
+    back = loads(cut.to_bytes())
+    assert problems(back) == [] and back.total == s.total
+    assert back.standard_error("0123") == s.standard_error("0123")
+    out = back.lookup(["0123", "012301"])
+    assert out["dropped"].tolist() == [False, True] and math.isnan(out["standard_error"][1])
+    assert back.interval("012301")[1] == math.inf

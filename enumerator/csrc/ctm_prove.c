@@ -37,6 +37,7 @@ typedef struct {
 struct ctm_cps_ws {
     wset sets[5];           /* L, R, configurations, the two waiting keys */
     int32_t *first[2], *next; /* per waiting key its first configuration; per configuration the next */
+    int32_t *gfirst[2], *gnext[2]; /* per key its first matching n-gram; per n-gram the next */
     size_t links_cap;
 };
 
@@ -118,23 +119,17 @@ static int wset_rehash(wset *s, size_t ns) {
     return CTM_OK;
 }
 
-/* The index of word w in the set, or -1. */
-static int32_t wset_find(const wset *s, const uint16_t *w) {
+/* 1: inserted, 0: present, 2: the set reached its limit, <0: error; *index: the word's index
+ * (new or present) */
+static int wset_put(wset *s, const uint16_t *w, int32_t *index) {
     const uint64_t h = whash(w, s->len);
     const uint32_t tag = (uint32_t)(h >> 32);
     size_t mask = s->nslots - 1, j = (size_t)(h >> 20) & mask;
     for (; s->gens[j] == s->gen; j = (j + 1) & mask)
-        if (s->tags[j] == tag && weq(s->keys + (size_t)s->slots[j] * (size_t)s->len, w, s->len)) return s->slots[j];
-    return -1;
-}
-
-/* 1: inserted, 0: present, 2: the set reached its limit, <0: error */
-static int wset_add(wset *s, const uint16_t *w) {
-    const uint64_t h = whash(w, s->len);
-    const uint32_t tag = (uint32_t)(h >> 32);
-    size_t mask = s->nslots - 1, j = (size_t)(h >> 20) & mask;
-    for (; s->gens[j] == s->gen; j = (j + 1) & mask)
-        if (s->tags[j] == tag && weq(s->keys + (size_t)s->slots[j] * (size_t)s->len, w, s->len)) return 0;
+        if (s->tags[j] == tag && weq(s->keys + (size_t)s->slots[j] * (size_t)s->len, w, s->len)) {
+            *index = s->slots[j];
+            return 0;
+        }
     if (s->count >= s->limit) return 2;
     if ((s->count + 1) * (size_t)s->len > s->cap) {
         uint16_t *k = realloc(s->keys, s->cap * 2 * sizeof *k);
@@ -143,11 +138,17 @@ static int wset_add(wset *s, const uint16_t *w) {
         s->cap *= 2;
     }
     memcpy(s->keys + s->count * (size_t)s->len, w, (size_t)s->len * sizeof *w);
+    *index = (int32_t)s->count;
     s->slots[j] = (int32_t)s->count++;
     s->gens[j] = s->gen;
     s->tags[j] = tag;
     if (s->count * 2 > s->nslots) return wset_rehash(s, s->nslots * 2) ? CTM_ENOMEM : 1;
     return 1;
+}
+
+static inline int wset_add(wset *s, const uint16_t *w) {
+    int32_t index;
+    return wset_put(s, w, &index);
 }
 
 ctm_cps_ws *ctm_cps_ws_new(void) {
@@ -164,6 +165,7 @@ void ctm_cps_ws_free(ctm_cps_ws *ws) {
     free(ws->first[0]);
     free(ws->first[1]);
     free(ws->next);
+    for (int i = 0; i < 2; i++) { free(ws->gfirst[i]); free(ws->gnext[i]); }
     free(ws);
 }
 
@@ -225,22 +227,43 @@ static int cps_once(ctm_cps_ws *ws, const ctm_machine *mc, int n, int k, size_t 
     wset_reset(L, n, limit);
     wset_reset(R, n, limit);
     wset_reset(C, clen, limit);
-    wset_reset(K[0], n - 1, limit); /* right movers wait on rw[1..n-1], a prefix of R's n-grams */
-    wset_reset(K[1], n - 1, limit); /* left movers wait on lw[0..n-2], a suffix of L's n-grams */
-    if (ws->links_cap < limit) {
-        int32_t *a = realloc(ws->first[0], limit * sizeof *a), *b = realloc(ws->first[1], limit * sizeof *b);
-        if (a) ws->first[0] = a;
-        if (b) ws->first[1] = b;
-        int32_t *c = realloc(ws->next, limit * sizeof *c);
-        if (c) ws->next = c;
-        if (!a || !b || !c) return CTM_ENOMEM;
-        ws->links_cap = limit;
+    /* keys come from configurations and from n-grams: at most the two limits together */
+    wset_reset(K[0], n - 1, 2 * limit); /* right movers wait on rw[1..n-1], a prefix of R's n-grams */
+    wset_reset(K[1], n - 1, 2 * limit); /* left movers wait on lw[0..n-2], a suffix of L's n-grams */
+    if (ws->links_cap < 2 * limit) {
+        int32_t **arrays[7] = {&ws->first[0], &ws->first[1], &ws->next, &ws->gfirst[0], &ws->gfirst[1],
+                               &ws->gnext[0], &ws->gnext[1]};
+        for (int a = 0; a < 7; a++) {
+            int32_t *p = realloc(*arrays[a], 2 * limit * sizeof *p);
+            if (!p) return CTM_ENOMEM;
+            *arrays[a] = p;
+        }
+        ws->links_cap = 2 * limit;
     }
     uint16_t cfg[2 * CTM_CPS_MAX_WINDOW + 2], nxt[2 * CTM_CPS_MAX_WINDOW + 2], gram[CTM_CPS_MAX_WINDOW];
     memset(cfg, 0, sizeof cfg);
     memset(gram, 0, sizeof gram);
     int rc;
-    if ((rc = wset_add(L, gram)) < 0 || (rc = wset_add(R, gram)) < 0 || (rc = wset_add(C, cfg)) < 0) return rc;
+    int32_t key, gi;
+    /* Side 0: right movers, keyed by rw[1..n-1], which R's n-grams match by their first n-1 cells.
+     * Side 1: left movers, keyed by lw[0..n-2], which L's n-grams match by their last n-1 cells.
+     * Each key lists the configurations waiting on it and the n-grams that match it. */
+#define CPS_KEY(side, word)                                                   \
+    do {                                                                      \
+        rc = wset_put(K[side], (word), &key);                                 \
+        if (rc < 0) return rc;                                                \
+        if (rc == 2) return NOT_PROVEN;                                       \
+        if (rc == 1) ws->first[side][key] = ws->gfirst[side][key] = -1;       \
+    } while (0)
+    /* the blank n-gram on both sides */
+    for (int side = 0; side < 2; side++) {
+        wset *G = side ? L : R;
+        if ((rc = wset_put(G, gram, &gi)) < 0) return rc;
+        CPS_KEY(side, gram);
+        ws->gnext[side][gi] = ws->gfirst[side][key];
+        ws->gfirst[side][key] = gi;
+    }
+    if ((rc = wset_add(C, cfg)) < 0) return rc;
     for (size_t i = 0; i < C->count; i++) {
         memcpy(cfg, C->keys + i * (size_t)clen, (size_t)clen * sizeof *cfg);
         uint16_t written;
@@ -248,41 +271,39 @@ static int cps_once(ctm_cps_ws *ws, const ctm_machine *mc, int n, int k, size_t 
         if (!step_of(&x, cfg, &written, &ns, &right)) return NOT_PROVEN;
         const uint16_t *lw = cfg + 1, *rw = cfg + 2 + n;
         /* the n-gram the move leaves behind: right, the new left window; left, the new right one */
-        wset *grown = right ? L : R, *pull = right ? R : L;
+        wset *grown = right ? L : R;
         if (right) { memcpy(gram, lw + 1, (size_t)(n - 1) * sizeof *gram); gram[n - 1] = written; }
         else { gram[0] = written; memcpy(gram + 1, rw, (size_t)(n - 1) * sizeof *gram); }
-        int added = wset_add(grown, gram);
+        int added = wset_put(grown, gram, &gi);
         if (added < 0) return added;
         if (added == 2) return NOT_PROVEN;
-        if (added == 1) { /* wake the movers the other way that wait for this n-gram */
-            wset *wk = K[right ? 1 : 0];
-            int32_t key = wset_find(wk, right ? gram + 1 : gram);
-            for (int32_t j = key >= 0 ? ws->first[right ? 1 : 0][key] : -1; j >= 0; j = ws->next[j]) {
+        if (added == 1) { /* index it, and wake the movers the other way that wait for it */
+            const int gside = right ? 1 : 0;
+            CPS_KEY(gside, right ? gram + 1 : gram);
+            ws->gnext[gside][gi] = ws->gfirst[gside][key];
+            ws->gfirst[gside][key] = gi;
+            for (int32_t j = ws->first[gside][key]; j >= 0; j = ws->next[j]) {
                 successor(&x, C->keys + (size_t)j * (size_t)clen, gram, nxt);
                 if ((rc = wset_add(C, nxt)) < 0) return rc;
                 if (rc == 2) return NOT_PROVEN;
             }
         }
         /* this configuration waits for the n-grams that may enter its window, and takes those known */
-        const uint16_t *want = right ? rw + 1 : lw;
         const int side = right ? 0 : 1;
-        size_t before = K[side]->count;
-        if ((rc = wset_add(K[side], want)) < 0) return rc;
-        if (rc == 2) return NOT_PROVEN;
-        int32_t key = wset_find(K[side], want);
-        if (K[side]->count > before) ws->first[side][key] = -1;
+        const wset *pull = right ? R : L;
+        CPS_KEY(side, right ? rw + 1 : lw);
         ws->next[i] = ws->first[side][key];
         ws->first[side][key] = (int32_t)i;
-        for (size_t g = 0; g < pull->count; g++) {
-            const uint16_t *cand = pull->keys + g * (size_t)n;
-            if (!weq(right ? cand : cand + 1, want, n - 1)) continue;
-            successor(&x, cfg, cand, nxt);
+        for (int32_t g = ws->gfirst[side][key]; g >= 0; g = ws->gnext[side][g]) {
+            successor(&x, cfg, pull->keys + (size_t)g * (size_t)n, nxt);
             if ((rc = wset_add(C, nxt)) < 0) return rc;
             if (rc == 2) return NOT_PROVEN;
         }
     }
+#undef CPS_KEY
     return PROVEN;
 }
+
 
 /* The CPS schedule: cheap plain windows first, then short windows with history,
  * ordered by what each proves per unit of work on the 1D (5,2) holdouts.
