@@ -32,7 +32,9 @@ cdef extern from "csrc/ctm_core.h" nogil:
         int prefix_len
         const uint16_t *prefix
         uint64_t probe_seed
+        int64_t keep_size
         ctm_map raw
+        ctm_map cut
         ctm_count halting, non_halting, undecided
         ctm_count proven[5]
         uint64_t proven_nodes[5]
@@ -162,6 +164,7 @@ cdef dict _result(ctm_unit *u, int64_t cap):
         proven_nodes=[int(u.proven_nodes[k]) for k in range(CTM_DEC_COUNT)],
         undecided_by_size=undec,
         raw=raw,
+        cut=_map_items(&u.cut),
         halting=_int(&u.halting),
         non_halting=_int(&u.non_halting),
         undecided=_int(&u.undecided),
@@ -194,7 +197,7 @@ def sample_unit(int dims, int n, int m, int64_t cap, unsigned deciders, uint64_t
 
 
 def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), int cut_depth=-1,
-             bint holdouts=False, int64_t cps_at=-1):
+             bint holdouts=False, int64_t cps_at=-1, int64_t keep_size=0):
     """Enumerate one work unit of the space (dims, n, m) under cap.
 
     prefix: the move-option indices to follow through the first len(prefix)
@@ -209,6 +212,7 @@ def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), 
     _setup(&u, dims, n, m, cap, deciders)
     u.cut_depth = cut_depth
     u.keep_holdouts = holdouts
+    u.keep_size = keep_size
     if cps_at >= 0:
         u.cps_at = cps_at
     if k:

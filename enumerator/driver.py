@@ -196,7 +196,7 @@ def build(
     if p is None:
         p = plan(space, cap, split_depth, deciders, relabel)
     chosen = p.select(shard)
-    store = _exhaustive_spool(spool, p, chosen) if spool else None
+    store = _exhaustive_spool(spool, p, chosen, max_size) if spool else None
     results = store.finished() if store else {}
     if holdouts:  # parts spooled without their holdouts are run again
         results = {k: r for k, r in results.items() if "holdouts" in r or not r["undecided_nodes"]}
@@ -221,11 +221,13 @@ def build(
     bits = p.bits
     if 0 in chosen and 0 not in results:  # the plan computed the top already: never spooled
         top = p.top
-        if holdouts and top["undecided_nodes"]:  # the plan's top run kept no holdouts
-            top = _core.run_unit(space.dims, space.states, space.symbols, cap, bits, (), p.depth or -1, True)
+        # the plan's top run kept no holdouts and every output: run it again for either
+        if (holdouts and top["undecided_nodes"]) or max_size is not None:
+            top = _core.run_unit(space.dims, space.states, space.symbols, cap, bits, (), p.depth or -1, holdouts,
+                                 -1, max_size or 0)
             top.pop("cuts")
         accept(0, top)
-    tasks = [(space.dims, space.states, space.symbols, cap, bits, k, p.unit(k).prefix, holdouts)
+    tasks = [(space.dims, space.states, space.symbols, cap, bits, k, p.unit(k).prefix, holdouts, max_size or 0)
              for k in chosen if k != 0 and k not in results]
     with kept(store):
         for index, result in executors.stream(tasks, workers, scheduler):
@@ -245,15 +247,18 @@ def build(
     return tally
 
 
-def _exhaustive_spool(folder, p: Plan, chosen) -> Spool:
-    """The spool of an exhaustive build: units of this plan (and shard), sealed by their prefix."""
+def _exhaustive_spool(folder, p: Plan, chosen, max_size: int | None = None) -> Spool:
+    """The spool of an exhaustive build: units of this plan (and shard), sealed by their prefix.
+    A build cut by size keeps only the weight of longer outputs, so its units are another build's."""
     wanted = set(chosen)
 
     def expect(index):
         return (p.unit(index).uid, p.unit(index).weight) if index in wanted and index != 0 else None
 
-    return Spool(folder, {"kind": "exhaustive", "plan": p.ident, "space": p.space.to_dict(), "cap": p.cap,
-                          "units": p.count}, expect)
+    ident = {"kind": "exhaustive", "plan": p.ident, "space": p.space.to_dict(), "cap": p.cap, "units": p.count}
+    if max_size is not None:
+        ident["keep_size"] = max_size
+    return Spool(folder, ident, expect)
 
 
 SAMPLE_UNIT = 25_000  # samples per work unit: the result never depends on the worker count

@@ -32,6 +32,7 @@ class Partial:
     undecided_nodes: int = 0
     proven: list = field(default_factory=list)  # non-halting weight by decider, in DECIDERS order
     proven_nodes: list | None = field(default_factory=list)  # tree nodes by decider; None: a unit lacked them
+    cut: dict = field(default_factory=dict)  # keep_size: class byte + uint32 rows, cols -> raw weight
     undecided_by_size: dict = field(default_factory=dict)  # (rows, cols) at the cap -> weight
     holdouts: list = field(default_factory=list)  # per unit: packed undecided nodes (core records)
 
@@ -44,6 +45,7 @@ class Partial:
         if self.proven_nodes is not None:  # a spool record from before node counts leaves them unknown
             self.proven_nodes = _add_lists(self.proven_nodes, unit["proven_nodes"]) if "proven_nodes" in unit else None
         _add_into(self.undecided_by_size, unit.get("undecided_by_size", {}))
+        _add_into(self.cut, unit.get("cut", {}))
         if unit.get("holdouts"):
             self.holdouts.append(unit["holdouts"])
         _add_lists(self.hist_steps, unit["hist_steps"])
@@ -194,6 +196,32 @@ def expand_raw(space: Space, raw: dict, max_size: int | None = None, dropped: di
             continue
         out[shape] = dict(zip(map(bytes, keys), map(int, sums)))
     return out
+
+
+def cut_weights(space: Space, cut: dict, dropped: dict) -> None:
+    """Add the weight of outputs the core kept only by class and size (keep_size) into `dropped`,
+    image by image: a raw weight w of class c spreads w x m x (its mirror or dihedral images) over
+    its symbol maps, half of the 2D rotations turning rows x cols into cols x rows. Their keys
+    were never seen, so the record holds no key count and bounds the largest count by the weight."""
+    m = space.symbols
+    images = {0: 1, 1: 2} if space.dims == 1 else {0: 1, 1: 4, 2: 8}
+    by_shape: dict = {}
+    for key, w in cut.items():
+        cls, rows, cols = key[0], int.from_bytes(key[1:5], "little"), int.from_bytes(key[5:9], "little")
+        n = images[cls]
+        if space.dims == 1:
+            shares = {(cols,): w * m * n}
+        elif n == 1 or rows == cols:
+            shares = {(rows, cols): w * m * n}
+        else:
+            shares = {(rows, cols): w * m * n // 2, (cols, rows): w * m * n // 2}
+        _add_into(by_shape, shares)
+    for shape, w in by_shape.items():
+        old = dropped.get(shape)
+        if old is None:
+            dropped[shape] = (w, None, w)
+        else:  # a shape also cut from expanded keys: the sum is exact, the key count is not known
+            dropped[shape] = (old[0] + w, None, old[2] + w)
 
 
 FULL_RELABELLING_MAX = 5  # sampled outputs take all m! symbol permutations up to m = 5 (120)
@@ -383,6 +411,10 @@ class Tally:
         keep keys up to that size only, with an exact record of the rest (Tally.dropped)."""
         dropped: dict = {}
         groups = expand_raw(space, part.raw, max_size, dropped)
+        if part.cut:
+            if max_size is None:
+                raise InvariantError("units cut by size reached an uncut build (a bug)")
+            cut_weights(space, part.cut, dropped)
         extra.update(max_size=max_size, dropped=dropped)
         tally = cls(
             space=space,

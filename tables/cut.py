@@ -2,7 +2,9 @@
 
 A (6,2) table holds millions of keys, most of them long strings that BDM never asks for. A
 cut table keeps the shapes whose longer side is at most `max_size` and records, per dropped
-shape, the exact weight it held, how many distinct keys and the largest count among them. So:
+shape, the exact weight it held, how many distinct keys and the largest count among them. A
+build cut in the core (`build --keep-size`) never sees the long keys: its records hold no key
+count (null) and bound the largest count by the shape's weight. So:
 - probabilities stay normalised by the true total (the dropped weight is part of it);
 - every dropped key's count is at most that shape's largest count, which gives a certified
   lower bound on its CTM; the reader reports it as dropped, never as a value;
@@ -29,22 +31,25 @@ class DroppedKeyError(TableError, KeyError):
 @dataclass
 class Cut:
     max_size: int
-    dropped: dict = field(default_factory=dict)  # shape -> (weight, keys, largest count)
+    dropped: dict = field(default_factory=dict)  # shape -> (weight, keys or None, bound on the largest count)
 
     @property
     def weight(self) -> int:
         return sum(w for w, _, _ in self.dropped.values())
 
     @property
-    def keys(self) -> int:
-        return sum(k for _, k, _ in self.dropped.values())
+    def keys(self) -> int | None:
+        """Distinct keys dropped; None when a build cut in the core never saw some of them."""
+        counts = [k for _, k, _ in self.dropped.values()]
+        return None if None in counts else sum(counts)
 
     def cuts(self, shape: tuple) -> bool:
         """Whether keys of this shape were dropped (a longer side past max_size)."""
         return max(shape) > self.max_size
 
     def most(self, shape: tuple) -> int:
-        """The largest count of any dropped key of this shape (0: the shape held none)."""
+        """An upper bound on the count of any dropped key of this shape, exact where the key count
+        is known (0: the shape held none)."""
         return self.dropped.get(tuple(shape), (0, 0, 0))[2]
 
     def header_field(self) -> dict:
@@ -80,13 +85,18 @@ def parse(header: dict, dims: int, symbols: int, cap: int, kept_shapes) -> Cut |
         if not (isinstance(entry, list) and len(entry) == 4 and isinstance(entry[0], list) and len(entry[0]) == dims):
             raise InconsistentTableError("a dropped-shape record is not [shape, weight, keys, largest count]")
         shape = tuple(_whole(x, "shape") for x in entry[0])
-        weight, keys, top = _whole(entry[1], "weight"), _whole(entry[2], "key count"), _whole(entry[3], "largest count")
+        weight, top = _whole(entry[1], "weight"), _whole(entry[3], "largest count")
+        keys = None if entry[2] is None else _whole(entry[2], "key count")  # null: cut in the core, unseen
         if min(shape) < 1 or max(shape) > cap + 1 or not cut.cuts(shape):
             raise InconsistentTableError(f"the cut records shape {shape}, which it keeps or cap {cap} cannot reach")
         if shape in cut.dropped:
             raise InconsistentTableError(f"the cut records shape {shape} twice")
         # each dropped key counts at least once and at most `top` times; keys of a shape are finite
-        if not (1 <= keys and 1 <= top <= weight <= keys * top) or keys > symbols ** min(math.prod(shape), 64):
+        if keys is None:
+            possible = 1 <= top <= weight
+        else:
+            possible = 1 <= keys <= symbols ** min(math.prod(shape), 64) and 1 <= top <= weight <= keys * top
+        if not possible:
             raise InconsistentTableError(f"the cut's record of shape {shape} is impossible "
                                          f"(weight {weight}, {keys} keys, largest {top})")
         cut.dropped[shape] = (weight, keys, top)

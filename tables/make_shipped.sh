@@ -34,3 +34,8 @@ ctmtab build --states 5 --symbols 2 --max-steps 47176870 --budget-hours 200 \
 ctmtab build --states 4 --symbols 4 --max-steps 2000 --sample 1000000000 --seed 2026 \
     -o tables/1d-n4-m4-t2000-sampled.ctmt --builder "ctmtab project" \
     --notes "shipped with ctmtab; sampled, 10^9 uniform machines, cap 2000" -q
+# Every 4x4 array, exhaustively: 2D (5,2) at cap 100, keys kept up to 4x4 (about 20 minutes on
+# 2 cores; past cap 100 the undecided share barely falls and the cost grows, README).
+ctmtab build --dims 2 --states 5 --symbols 2 --max-steps 100 --keep-size 4 \
+    -o tables/2d-n5-m2-t100-upto4.ctmt --builder "ctmtab project" \
+    --notes "$(note "100, keys kept up to 4x4: every 4x4 array, from every machine")" -q

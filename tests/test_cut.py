@@ -45,27 +45,30 @@ def test_a_cut_build_keeps_the_uncut_counts_and_records_the_rest_exactly(full32,
     cut = Table.from_tally(build(Space(1, 3, 2), 21, max_size=max_size))
     kept = {k: c for k, c in full32.items() if len(k) <= max_size}
     assert dict(cut.items()) == kept
-    assert cut.cut.dropped == _record(full32, max_size)
     assert cut.total == full32.total  # normalised by the true total
     for key in list(kept)[:50]:
         assert cut.ctm(key) == full32.ctm(key) and cut.interval(key) == full32.interval(key)
-    # trimming the uncut table gives the same file content as cutting during the build
+    # trimming the uncut table records every dropped shape exactly; the core's cut never saw the
+    # keys, so it records the same weights with no key count and a weaker bound
     trimmed = full32.trimmed(max_size)
-    assert trimmed.header["cut"] == cut.header["cut"] and trimmed.body() == cut.body()
-    back = loads(cut.to_bytes())
-    assert problems(back) == [] and back.cut.dropped == cut.cut.dropped
+    assert trimmed.cut.dropped == _record(full32, max_size) and trimmed.body() == cut.body()
+    assert {s: (w, None, w) for s, (w, _, _) in trimmed.cut.dropped.items()} == cut.cut.dropped
+    for t in (cut, trimmed):
+        back = loads(t.to_bytes())
+        assert problems(back) == [] and back.cut.dropped == t.cut.dropped
 
 
-def test_a_dropped_key_gets_a_certified_lower_bound_never_a_value(full32):
-    cut = full32.trimmed(4)
+@pytest.mark.parametrize("in_core", [False, True])
+def test_a_dropped_key_gets_a_certified_lower_bound_never_a_value(full32, in_core):
+    cut = Table.from_tally(build(Space(1, 3, 2), 21, max_size=4)) if in_core else full32.trimmed(4)
     for key, c in full32.items():
         if len(key) > 4:
             low, high = cut.interval(key)
             assert low <= full32.ctm(key) + 1e-12 and high == math.inf
-    # the bound is the shape's largest count: tight for the commonest key of each length
-    for shape, (_, _, top) in cut.cut.dropped.items():
+    # trimmed, the bound is the shape's largest count: tight for the commonest key of each length
+    for shape, (weight, _, top) in cut.cut.dropped.items():
         commonest = max((c for k, c in full32.items() if len(k) == shape[0]))
-        assert top == commonest
+        assert top == (weight if in_core else commonest)
     with pytest.raises(DroppedKeyError, match="cut"):
         cut.count("01010")
     with pytest.raises(DroppedKeyError, match="at most that size"):
@@ -182,3 +185,27 @@ def test_a_sampled_table_cut_keeps_its_errors_and_reports_dropped_keys():
     out = back.lookup(["0123", "012301"])
     assert out["dropped"].tolist() == [False, True] and math.isnan(out["standard_error"][1])
     assert back.interval("012301")[1] == math.inf
+
+
+@pytest.mark.parametrize("space, cap, keep", [(Space(1, 4, 2), 107, 7), (Space(2, 3, 2), 2000, 2),
+                                              (Space(1, 2, 3), 38, 4)])
+def test_a_build_cut_in_the_core_keeps_the_same_keys_and_dropped_weights(space, cap, keep):
+    whole = Table.from_tally(build(space, cap))
+    core_cut = Table.from_tally(build(space, cap, max_size=keep, workers=2))
+    trimmed = whole.trimmed(keep)
+    assert dict(core_cut.items()) == dict(trimmed.items())
+    assert {s: w for s, (w, _, _) in core_cut.cut.dropped.items()} == {s: w for s, (w, _, _) in trimmed.cut.dropped.items()}
+    assert all(k is None and top == w for w, k, top in core_cut.cut.dropped.values())  # never collected
+    assert core_cut.total == whole.total and problems(loads(core_cut.to_bytes())) == []
+    for key, _ in list(whole.items())[::7]:  # the weaker bound still holds
+        if core_cut.dropped(whole._parse_key(key)[0]):
+            assert core_cut.interval(key)[0] <= whole.ctm(key) + 1e-12
+
+
+def test_a_cut_build_does_not_resume_an_uncut_spool(tmp_path):
+    # the spool's identity names the cut, so the parts of an uncut build (whose units hold every
+    # output) and of a cut one (whose units hold only the weight of the long ones) never mix
+    from ctmtab.enumerator.driver import _exhaustive_spool, plan
+    p = plan(Space(1, 4, 2), 60)
+    idents = {_exhaustive_spool(tmp_path / str(k), p, p.select(None), k).fingerprint for k in (None, 5, 6)}
+    assert len(idents) == 3

@@ -158,3 +158,14 @@ def test_plot_and_demo_commands(tmp_path):
     r = ctm("demo", "-o", tmp_path / "demo")
     assert r.returncode == 0 and "Spearman" in r.stdout and "fictional" in r.stdout
     assert len(list((tmp_path / "demo").glob("*.png"))) == 5
+
+
+def test_bdm_counts_the_blocks_it_scored_by_the_fallback():
+    from ctmtab.tables import load
+    from ctmtab.tools.bdm import BDM
+    t = load("1d-n4-m2-t107")  # every string of length <= 8 is produced, some of length 9 are not
+    x = np.random.default_rng(4).integers(0, 2, 9 * 3000)
+    seen = {k for k, _ in t.items(9)}
+    blocks = ["".join(map(str, x[i:i + 9])) for i in range(0, len(x) - 8, 9)]
+    assert BDM(t, 9).fallbacks(x) == sum(b not in seen for b in blocks) > 0
+    assert BDM(t, 8).fallbacks(x) == 0

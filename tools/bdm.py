@@ -89,6 +89,14 @@ class BDM:
                 code = code * self.m + x[np.ix_(r0 + i, c0 + j)]
         return code.reshape(-1)
 
+    def fallbacks(self, x) -> int:
+        """How many of the blocks BDM takes from x (the remainder of 'shrink' aside) the table never
+        produced: each was scored with the missing-key policy, not with a value of the table."""
+        if not hasattr(self, "_absent"):
+            self._absent = np.isnan(self.table.dense(self.block, missing="nan"))
+        codes = self.codes(x)
+        return int(np.count_nonzero(self._absent[codes])) if len(codes) else 0
+
     def __call__(self, x) -> float:
         """BDM of one sequence or array, in bits."""
         codes = self.codes(x)

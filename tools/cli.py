@@ -423,7 +423,7 @@ def cmd_info(a) -> int:
         lines.append(f"  notes      {s['notes']}")
     if t.cut is not None:
         c = t.cut
-        lines.insert(4, f"  cut        keys up to size {c.max_size} kept; {c.keys:,} keys of {len(c.dropped)} longer shapes "
+        lines.insert(4, f"  cut        keys up to size {c.max_size} kept; {_keys(c)} of {len(c.dropped)} longer shapes "
                         f"dropped ({_percent(c.weight / t.total) if t.total else '0%'} of the counts, kept in the "
                         "total); lookups of them give a lower bound")
     if t.mode == "exhaustive":
@@ -551,6 +551,10 @@ def cmd_verify(a) -> int:
     return worst
 
 
+def _keys(cut) -> str:
+    return "keys (never collected: cut during the build)" if cut.keys is None else f"{cut.keys:,} keys"
+
+
 def cmd_trim(a) -> int:
     from ..tables import load
 
@@ -559,7 +563,7 @@ def cmd_trim(a) -> int:
     cut = t.trimmed(a.keep_size)
     cut.save(out)
     c = cut.cut
-    print(f"{out}: kept {cut.distinct:,} keys up to size {c.max_size}, dropped {c.keys:,} keys of "
+    print(f"{out}: kept {cut.distinct:,} keys up to size {c.max_size}, dropped {_keys(c)} of "
           f"{len(c.dropped)} shapes ({_percent(c.weight / cut.total) if cut.total else '0%'} of the counts)",
           file=sys.stderr)
     return 0

@@ -43,6 +43,7 @@ int ctm_unit_init(ctm_unit *u) {
     u->cps_ws = NULL;
     memset(&u->raw, 0, sizeof u->raw);
     memset(&u->undec, 0, sizeof u->undec);
+    memset(&u->cut, 0, sizeof u->cut);
     memset(u->save_buf, 0, sizeof u->save_buf);
     memset(u->save_cap, 0, sizeof u->save_cap);
     memset(u->proven, 0, sizeof u->proven);
@@ -141,6 +142,7 @@ void ctm_unit_free(ctm_unit *u) {
     u->cut_weights = NULL;
     if (u->raw.hashes) ctm_map_free(&u->raw);
     if (u->undec.hashes) ctm_map_free(&u->undec);
+    if (u->cut.hashes) ctm_map_free(&u->cut);
     free(u->holdouts);
     u->holdouts = NULL;
     ctm_cps_ws_free(u->cps_ws);
@@ -307,6 +309,19 @@ static int halt_leaves(ctm_unit *u, const config *c) {
     int rc = output_key(u, c, flag, &len, &at, &nonblank);
     if (rc) return rc;
     const int writes = relabel && u->usym + 1 < u->m ? u->usym + 1 : u->m;
+    const uint32_t size[2] = {(uint32_t)(c->yhi - c->ylo + 1), (uint32_t)(c->xhi - c->xlo + 1)};
+    if (u->keep_size > 0 && (int64_t)(size[0] > size[1] ? size[0] : size[1]) > u->keep_size) {
+        /* past the size kept: only the weight, by class and size (the images share both sides) */
+        uint8_t key[9];
+        key[0] = (uint8_t)u->sym;
+        memcpy(key + 1, size, sizeof size); /* little-endian hosts only, as the rest of the core */
+        if (!u->cut.hashes && ctm_map_init(&u->cut)) return CTM_ENOMEM;
+        ctm_count all = w * (ctm_count)writes + (writes < u->m ? w * (ctm_count)(u->m - 1 - u->usym) : 0);
+        rc = ctm_map_add(&u->cut, key, sizeof key, all);
+        if (rc) return rc;
+        tally_halt(u, c, w * (ctm_count)u->m * u->factor[u->sym], nonblank + 1);
+        return CTM_OK;
+    }
     for (int s = 0; s < writes; s++) {
         u->scratch[at] = (uint8_t)s;
         rc = ctm_map_add(&u->raw, u->scratch, (uint32_t)len, w);

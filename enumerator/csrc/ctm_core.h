@@ -7,7 +7,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define CTM_API_VERSION 4
+#define CTM_API_VERSION 5
 
 #define CTM_OK 0
 #define CTM_ENOMEM (-1)    /* an allocation failed */
@@ -97,9 +97,12 @@ typedef struct {
     int prefix_len;     /* > 0: follow prefix[] through the first prefix_len branch points */
     const uint16_t *prefix;
     uint64_t probe_seed; /* != 0: one random root-to-leaf walk per call (Knuth estimate) */
+    int64_t keep_size;   /* > 0: a halting output longer (2D: on its longer side) than this adds
+                            only its weight to `cut`, never its cells to `raw` */
 
     /* outputs: weights count machines on blank 0, mirror images included */
     ctm_map raw;         /* key = flag byte (class | symbols in use << 2) + output symbols */
+    ctm_map cut;         /* keep_size: key = class byte, uint32 rows, uint32 cols -> raw weight */
     ctm_count halting, non_halting, undecided;
     ctm_count proven[CTM_DEC_COUNT]; /* non-halting weight by the proof that gave it */
     uint64_t proven_nodes[CTM_DEC_COUNT]; /* tree nodes each proof closed */
