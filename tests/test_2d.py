@@ -95,3 +95,16 @@ def test_2d_build_and_export_from_the_command_line(tmp_path):
     r = subprocess.run([sys.executable, "-m", "ctmtab", "build", "--dims", "2", "--states", "2", "-o",
                         str(tmp_path / "x.ctmt")], capture_output=True, text=True)
     assert r.returncode == 2 and "give --max-steps" in r.stderr
+
+
+def test_the_shipped_5_state_2d_table_holds_every_4x4_array():
+    from ctmtab.tables import load, problems
+    from ctmtab.tools.bdm import BDM
+    t = load("2d-n5-m2-t100-upto4")
+    # (4nm + m)^(nm) machines in the 2D busy-beaver formalism (DESIGN.md): 42^10 for (5,2)
+    assert t.space_size == (4 * 5 * 2 + 2) ** 10 == 17_080_198_121_677_824
+    assert t.cut.max_size == 4 and problems(t) == []
+    assert all(len(t.groups[(r, c)]) == 2 ** (r * c) for r in range(1, 5) for c in range(1, 5))
+    x = np.random.default_rng(2026).integers(0, 2, (200, 200))
+    assert BDM(t, (4, 4)).fallbacks(x) == 0
+    assert t.dropped((5, 1)) and t.interval("00000/00000")[1] == float("inf")
