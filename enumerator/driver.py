@@ -178,6 +178,8 @@ def build(
                                  or shard is not None):
         raise SpaceError(f"max_size must be a whole number >= 1 on a whole build, got {max_size!r}"
                          + (" on a shard; cut the merged table instead" if shard is not None else ""))
+    if max_size is not None:
+        max_size = min(max_size, cap + 1)  # no output is longer: a larger size keeps everything
     t0 = time.perf_counter()
     # The default-depth plan is cheap and serves the estimate too; another depth (0 runs the
     # whole tree as its top) is planned only after the estimate has let the build through.

@@ -62,7 +62,8 @@ def header_field(tally) -> dict | None:
 
 
 def _whole(v, what: str) -> int:
-    if isinstance(v, bool) or not isinstance(v, (int, str)) or (isinstance(v, str) and not v.isdigit()):
+    if isinstance(v, bool) or not isinstance(v, (int, str)) or (
+            isinstance(v, str) and not (v.isascii() and v.isdigit())):
         raise InconsistentTableError(f"the certificate's {what} is not a whole number")
     v = int(v)
     if v < 0:

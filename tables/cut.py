@@ -63,7 +63,8 @@ def of_tally(tally) -> Cut | None:
 
 
 def _whole(v, what: str) -> int:
-    if isinstance(v, bool) or not isinstance(v, (int, str)) or (isinstance(v, str) and not v.isdigit()):
+    if isinstance(v, bool) or not isinstance(v, (int, str)) or (
+            isinstance(v, str) and not (v.isascii() and v.isdigit())):
         raise InconsistentTableError(f"the cut's {what} is not a whole number")
     return int(v)
 
@@ -92,8 +93,8 @@ def parse(header: dict, dims: int, symbols: int, cap: int, kept_shapes) -> Cut |
         if shape in cut.dropped:
             raise InconsistentTableError(f"the cut records shape {shape} twice")
         # each dropped key counts at least once and at most `top` times; keys of a shape are finite
-        if keys is None:
-            possible = 1 <= top <= weight
+        if keys is None:  # never collected: the bound on the largest count is the weight itself
+            possible = 1 <= top == weight
         else:
             possible = 1 <= keys <= symbols ** min(math.prod(shape), 64) and 1 <= top <= weight <= keys * top
         if not possible:

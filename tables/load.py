@@ -244,6 +244,8 @@ def body_bounds(header: dict) -> tuple[int, int]:
         longest = max(longest, max(shape))
         low += k * (width + 8 + (8 if moment_limbs else 0))
         high += k * (width + 8 * (count_limbs + moment_limbs)) + 256
+    if header.get("cut") is not None:  # the size histogram still runs to the dropped sizes
+        longest = header["cap"] + 1
     hist_limbs = limbs_needed([halting])
     high += (header["cap"] + 1 + longest + 1) * 8 * hist_limbs + 256
     return low, high

@@ -227,6 +227,7 @@ class Table:
         header["cut"] = cut.header_field()
         table = Table(header, groups, self.hist_steps, self.hist_len, source=self.source)
         header["keys"] = table._key_summary()
+        table.min_seen = self.min_seen
         return table
 
     def to_tally(self):
@@ -398,10 +399,13 @@ class Table:
     def dropped_bound(self, shape) -> float:
         """A lower bound on the CTM of any key of a cut shape: its count is at most the shape's
         largest dropped count (plus, exhaustive, the undecided runs that could still reach it).
-        Certified for exhaustive tables; from the sample's counts for sampled ones."""
+        Certified for exhaustive tables. Sampled tables: an approximate 95% bound, from the
+        largest count seen plus two standard deviations of a count of it (k images a sample)
+        and, as for a key never seen, the rule of three (p <= 3/H)."""
         most = self.cut.most(tuple(shape))
         if self.mode == "sampled":
-            return math.log2(self.total) - math.log2(most) if most else math.inf
+            k = self.header["sample"]["images_per_sample"]
+            return math.log2(self.total) - math.log2(most + 2 * math.sqrt(k * most) + 3 * k)
         low, _ = certify.bounds(most, self.undecided_reach(shape), self.undecided_runs, self.total)
         return float(low)
 
@@ -507,6 +511,7 @@ class Table:
         gave it the same number of images; the count alone overstates keys that are their own
         images, such as 0000). Exhaustive tables: its count."""
         shape, pos = self._find(key)
+        self._refuse_dropped(key, shape)
         if pos < 0:
             return 0.0
         g = self.groups[shape]

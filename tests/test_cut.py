@@ -209,3 +209,37 @@ def test_a_cut_build_does_not_resume_an_uncut_spool(tmp_path):
     p = plan(Space(1, 4, 2), 60)
     idents = {_exhaustive_spool(tmp_path / str(k), p, p.select(None), k).fingerprint for k in (None, 5, 6)}
     assert len(idents) == 3
+
+
+def test_every_cut_of_the_shipped_tables_loads_back():
+    # the size histogram of a cut table still runs to its longest dropped size, and the body's
+    # declared size must allow for it (a review found cut tables refused as oversized)
+    for name in ("1d-n5-m2-t500", "1d-n4-m4-t2000-sampled", "2d-n3-m2-t2000"):
+        t = load(name)
+        for k in (1, 3):
+            back = loads(t.trimmed(k).to_bytes())
+            assert back.total == t.total and back.cut.max_size == k
+
+
+def test_a_sampled_dropped_bound_is_no_higher_than_what_the_uncut_table_allows():
+    s = load("1d-n4-m4-t2000-sampled")
+    cut = s.trimmed(5)
+    never = "1" * 85  # a length the sample never produced: the rule of three, as uncut
+    assert cut.interval(never)[0] == pytest.approx(s.interval(never)[0]) and math.isfinite(cut.interval(never)[0])
+    shape = (6,)
+    top_key = max(s.items(6), key=lambda kc: kc[1])[0]
+    assert cut.dropped_bound(shape) <= s.ctm(top_key)
+    with pytest.raises(DroppedKeyError):
+        cut.seen(top_key)
+    assert cut.min_seen == s.min_seen
+
+
+def test_a_record_cut_in_the_core_must_bound_by_its_weight(full32):
+    data = Table.from_tally(build(Space(1, 3, 2), 21, max_size=4)).to_bytes()
+    with pytest.raises(InconsistentTableError, match="impossible"):
+        loads(with_header(data, lambda h: h["cut"]["dropped"][0].__setitem__(3, "1")))
+
+
+def test_a_huge_keep_size_keeps_everything_without_overflow(full32):
+    t = Table.from_tally(build(Space(1, 3, 2), 21, max_size=10**20))
+    assert t.cut.max_size == 22 and dict(t.items()) == dict(full32.items())

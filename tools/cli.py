@@ -516,7 +516,7 @@ def cmd_lookup(a) -> int:
             if r.get("dropped"):
                 print(f"{r['key']:<20} {'dropped (size cut)':>22} {'':>12}" + (f" {'':>10}" if sampled else "")
                       + f" {'':>10}  CTM >= {r['ctm_low']:.4f}"
-                      + (" (certified)" if not sampled else " (from the sample)"))
+                      + (" (certified)" if not sampled else " (approximate 95%, from the sample)"))
                 continue
             print(f"{r['key']:<20} {r['count']:>22,} {r['probability']:>12.6g}"
                   + (f" {r['standard_error']:>10.3g}" if sampled else "")
