@@ -18,7 +18,7 @@ from ..enumerator.space import MAX_CAP, MAX_ENTRIES
 from ..enumerator.tally import FULL_RELABELLING_MAX
 from ..errors import InconsistentTableError, SizeLimitError, TableError
 from . import format as fmt
-from .arrays import U64, Hist, decode_counts, limbs_needed
+from .arrays import U64, Hist, decode_counts, exact_sum, limbs_needed
 from .table import SHIPPED, Group, Table
 
 SUFFIX = ".ctmt"
@@ -353,4 +353,14 @@ def _build(header: dict, body: dict, where: str) -> Table:
         _need(table.total == table.blanks * table.halting, where,
               "the counts do not sum to blanks x the halting total in the header")
         _need(table.hist_steps.total() == table.halting, where, "the step histogram contradicts the halting total")
+    if table.cut is not None:  # what was dropped must still add up size by size, before any lookup
+        per_run = table.blanks if table.mode == "exhaustive" else table.header["sample"]["images_per_sample"]
+        by_size: dict = {}
+        for shape, g in groups.items():
+            by_size[max(shape)] = by_size.get(max(shape), 0) + exact_sum(g.counts)
+        for shape, (weight, _, _) in table.cut.dropped.items():
+            by_size[max(shape)] = by_size.get(max(shape), 0) + weight
+        _need(all(total == per_run * (table.hist_len[size] if size < len(table.hist_len) else 0)
+                  for size, total in by_size.items()), where,
+              "the kept and dropped counts disagree with the size histogram")
     return table

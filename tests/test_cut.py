@@ -143,6 +143,9 @@ def test_bdm_uses_a_cut_table_up_to_its_size_and_refuses_longer_blocks(full32):
     (lambda h: h["cut"].update(max_size=2), "past its cut"),
     (lambda h: h["cut"].update(dropped="all"), "malformed"),
     (lambda h: h["cut"]["dropped"].pop(), "sum"),
+    (lambda h: (h["cut"]["dropped"][0].__setitem__(1, str(int(h["cut"]["dropped"][0][1]) + 2)),
+                h["cut"]["dropped"][1].__setitem__(1, str(int(h["cut"]["dropped"][1][1]) - 2))),
+     "disagree with the size histogram"),  # the total holds; the sizes do not
 ])
 def test_resealed_cut_records_with_absurd_content_are_refused(full32, edit, fragment):
     data = full32.trimmed(4).to_bytes()
