@@ -411,7 +411,7 @@ def cmd_info(a) -> int:
         f"({_percent(s['undecided_fraction'])})",
         f"  keys       {s['distinct_keys']:,} distinct; complete up to size "
         f"{max([int(x.split('x')[0]) for x in s['complete_shapes']] or [0]) if t.space.dims == 1 else s['complete_shapes']}",
-        f"  CTM        {s['ctm_min']:.4f} to {s['ctm_max']:.4f} bits" if t.total
+        f"  CTM        {s['ctm_min']:.4f} to {s['ctm_max']:.4f} bits" + (" (the kept keys)" if t.cut else "") if t.total
         else "  CTM        none: no run halted",
         f"  longest    {s['stats'].get('longest_run', '?')} steps, {s['stats'].get('most_nonblank', '?')} non-blank cells",
         f"  built      {s['build'].get('created', '?')}"
