@@ -61,14 +61,17 @@ def header_field(tally) -> dict | None:
     return out
 
 
-def _whole(v, what: str) -> int:
+def whole(v, what: str, owner: str = "certificate") -> int:
+    """A header count: an int or a decimal string of ASCII digits, never negative. `owner` names
+    the header field in the error (the certificate, the cut)."""
     if isinstance(v, bool) or not isinstance(v, (int, str)) or (
             isinstance(v, str) and not (v.isascii() and v.isdigit())):
-        raise InconsistentTableError(f"the certificate's {what} is not a whole number")
+        raise InconsistentTableError(f"the {owner}'s {what} is not a whole number")
     v = int(v)
     if v < 0:
-        raise InconsistentTableError(f"the certificate's {what} is negative")
+        raise InconsistentTableError(f"the {owner}'s {what} is negative")
     return v
+
 
 
 def parse(header: dict, non_halting: int, undecided: int, cap: int, dims: int = 1) -> Certificate | None:
@@ -82,12 +85,12 @@ def parse(header: dict, non_halting: int, undecided: int, cap: int, dims: int = 
     sizes = cert.get("undecided_by_size")
     if not isinstance(proofs, dict) or not isinstance(sizes, list) or len(sizes) > MAX_SIZES:
         raise InconsistentTableError("the certificate's proofs or undecided_by_size are malformed")
-    parsed_proofs = {str(k): _whole(v, f"proof weight of {k!r}") for k, v in proofs.items()}
+    parsed_proofs = {str(k): whole(v, f"proof weight of {k!r}") for k, v in proofs.items()}
     by_size = []
     for entry in sizes:
         if not isinstance(entry, list) or len(entry) != 3:
             raise InconsistentTableError("an undecided_by_size entry is not [rows, cols, weight]")
-        r, c, w = _whole(entry[0], "rows"), _whole(entry[1], "cols"), _whole(entry[2], "weight")
+        r, c, w = whole(entry[0], "rows"), whole(entry[1], "cols"), whole(entry[2], "weight")
         # a run of at most cap steps visits at most cap + 1 cells along each axis; 1D has one row
         if not (1 <= r <= (1 if dims == 1 else cap + 1) and 1 <= c <= cap + 1):
             raise InconsistentTableError(f"an undecided size {r}x{c} cannot arise in {dims}D under cap {cap}")
@@ -100,15 +103,15 @@ def parse(header: dict, non_halting: int, undecided: int, cap: int, dims: int = 
     if bound is not None:
         if not isinstance(bound, dict) or not isinstance(bound.get("source"), str):
             raise InconsistentTableError("the certificate's step_bound is malformed")
-        if _whole(bound.get("steps"), "step bound") > cap or undecided:
+        if whole(bound.get("steps"), "step bound") > cap or undecided:
             raise InconsistentTableError("the certificate claims a step bound that the cap or the "
                                          "undecided total contradicts")
-    nodes = _whole(cert.get("undecided_nodes", 0), "undecided_nodes")
+    nodes = whole(cert.get("undecided_nodes", 0), "undecided_nodes")
     proof_nodes = cert.get("proof_nodes")
     if proof_nodes is not None:
         if not isinstance(proof_nodes, dict) or set(proof_nodes) != set(parsed_proofs):
             raise InconsistentTableError("the certificate's proof_nodes do not name the same proofs as its weights")
-        proof_nodes = {str(k): _whole(v, f"node count of {k!r}") for k, v in proof_nodes.items()}
+        proof_nodes = {str(k): whole(v, f"node count of {k!r}") for k, v in proof_nodes.items()}
         # a node stands for at least one machine, so a proof closes no more nodes than machines
         if any(n > parsed_proofs[k] or (n == 0) != (parsed_proofs[k] == 0) for k, n in proof_nodes.items()):
             raise InconsistentTableError("the certificate's proof_nodes contradict its proof weights")

@@ -17,6 +17,7 @@ import math
 from dataclasses import dataclass, field
 
 from ..errors import InconsistentTableError, TableError
+from . import certify
 
 MAX_DROPPED = 1 << 20  # dropped-shape records in one header: far above any cap's shapes
 
@@ -63,10 +64,7 @@ def of_tally(tally) -> Cut | None:
 
 
 def _whole(v, what: str) -> int:
-    if isinstance(v, bool) or not isinstance(v, (int, str)) or (
-            isinstance(v, str) and not (v.isascii() and v.isdigit())):
-        raise InconsistentTableError(f"the cut's {what} is not a whole number")
-    return int(v)
+    return certify.whole(v, what, "cut")
 
 
 def parse(header: dict, dims: int, symbols: int, cap: int, kept_shapes) -> Cut | None:

@@ -18,7 +18,7 @@ from ..enumerator.space import MAX_CAP, MAX_ENTRIES
 from ..enumerator.tally import FULL_RELABELLING_MAX
 from ..errors import InconsistentTableError, SizeLimitError, TableError
 from . import format as fmt
-from .arrays import U64, Hist, decode_counts, exact_sum, limbs_needed
+from .arrays import U64, Hist, decode_counts, limbs_needed
 from .table import SHIPPED, Group, Table
 
 SUFFIX = ".ctmt"
@@ -238,14 +238,11 @@ def body_bounds(header: dict) -> tuple[int, int]:
     count_limbs = limbs_needed([per_run * halting])
     moment_limbs = limbs_needed([per_run * per_run * halting]) if header["mode"] == "sampled" else 0
     low, high = 0, 256
-    longest = 0
     for shape, k in header["keys"]["groups"]:
         width = _key_width(m, math.prod(shape))
-        longest = max(longest, max(shape))
         low += k * (width + 8 + (8 if moment_limbs else 0))
         high += k * (width + 8 * (count_limbs + moment_limbs)) + 256
-    if header.get("cut") is not None:  # the size histogram still runs to the dropped sizes
-        longest = header["cap"] + 1
+    longest = _longest_size(header, [shape for shape, _ in header["keys"]["groups"]])
     hist_limbs = limbs_needed([halting])
     high += (header["cap"] + 1 + longest + 1) * 8 * hist_limbs + 256
     return low, high
@@ -255,6 +252,14 @@ def _array_bytes(spec, n: int, width: int, where: str, what: str) -> bytes:
     _need(isinstance(spec, dict) and isinstance(spec.get("data"), bytes), where, f"{what} has no data")
     _need(len(spec["data"]) == n * width, where, f"{what} holds {len(spec['data'])} bytes, not {n * width}")
     return spec["data"]
+
+
+def _longest_size(header: dict, shapes) -> int:
+    """The longest size the size histogram may reach: the longest key kept or, in a table cut by
+    size, cap + 1 (the dropped sizes stay in it; a run visits at most cap + 1 cells)."""
+    if header.get("cut") is not None:
+        return header["cap"] + 1
+    return max((max(s) for s in shapes), default=0)
 
 
 def _counts(spec, n: int, where: str, what: str) -> np.ndarray:
@@ -330,9 +335,7 @@ def _build(header: dict, body: dict, where: str) -> Table:
         if header.get("mode") == "sampled":
             g.moments = _counts(spec.get("moments"), n, where, f"the moments of shape {shape}")
         groups[shape] = g
-    longest = max((max(s) for s in summary), default=0)
-    if header.get("cut") is not None:  # the dropped sizes stay in the histogram; a run has at most cap + 1 cells
-        longest = header["cap"] + 1
+    longest = _longest_size(header, summary)
     table = Table(header, groups, _hist(body.get("hist_steps"), header["cap"] + 1, where, "the step histogram"),
                   _hist(body.get("hist_len"), longest + 1, where, "the length histogram"), source=where)
     _need(header.get("keys") == table._key_summary(), where, "the header's key summary contradicts the body")
@@ -355,12 +358,7 @@ def _build(header: dict, body: dict, where: str) -> Table:
         _need(table.hist_steps.total() == table.halting, where, "the step histogram contradicts the halting total")
     if table.cut is not None:  # what was dropped must still add up size by size, before any lookup
         per_run = table.blanks if table.mode == "exhaustive" else table.header["sample"]["images_per_sample"]
-        by_size: dict = {}
-        for shape, g in groups.items():
-            by_size[max(shape)] = by_size.get(max(shape), 0) + exact_sum(g.counts)
-        for shape, (weight, _, _) in table.cut.dropped.items():
-            by_size[max(shape)] = by_size.get(max(shape), 0) + weight
         _need(all(total == per_run * (table.hist_len[size] if size < len(table.hist_len) else 0)
-                  for size, total in by_size.items()), where,
+                  for size, total in table.weight_by_size().items()), where,
               "the kept and dropped counts disagree with the size histogram")
     return table

@@ -391,6 +391,16 @@ class Table:
         self._refuse_dropped(key, shape)
         return 0 if pos < 0 else int(self.groups[shape].counts[pos])
 
+    def weight_by_size(self) -> dict:
+        """Size (the longer side) -> the counts of the keys of that size, those a cut dropped
+        included: each must equal the size histogram's entry times the runs per machine."""
+        by_size: dict = {}
+        for shape, g in self.groups.items():
+            by_size[max(shape)] = by_size.get(max(shape), 0) + exact_sum(g.counts)
+        for shape, (weight, _, _) in (self.cut.dropped.items() if self.cut else ()):
+            by_size[max(shape)] = by_size.get(max(shape), 0) + weight
+        return by_size
+
     # ---- the size cut (tables/cut.py)
     def dropped(self, shape) -> bool:
         """Whether this table cut the keys of this shape (they are counted only in total)."""
@@ -445,9 +455,12 @@ class Table:
     def ctm(self, key, missing: str = "raise") -> float:
         """CTM(key) = -log2 D(key) in bits."""
         self.require_halting()
-        if missing == "nan" and self.dropped(self._parse_key(key)[0]):
-            return math.nan
-        c = self.count(key)
+        try:
+            c = self.count(key)
+        except DroppedKeyError:
+            if missing == "nan":
+                return math.nan
+            raise
         if c == 0:
             return self._missing(key, missing)
         self._warn_rare(key, c)

@@ -4,7 +4,6 @@ from __future__ import annotations
 import numpy as np
 
 from ..enumerator.tally import blank_perms, dihedral_images
-from .arrays import exact_sum
 from .table import Table
 
 
@@ -31,19 +30,16 @@ def problems(table: Table) -> list[str]:
         out.append("the output-size histogram does not sum to the halting total")
     if len(t.hist_steps) > t.cap + 1:
         out.append(f"the step histogram reaches past the cap {t.cap}")
-    by_size: dict = {}
     for shape in t.shapes:
-        by_size[max(shape)] = by_size.get(max(shape), 0) + exact_sum(t.groups[shape].counts)
         out += [f"shape {shape}: {p}" for p in _closure(t, shape)]
         if t.mode == "sampled":
             out += [f"shape {shape}: {p}" for p in _moments(t, shape)]
-    if t.cut is not None:  # the dropped weight is still in the size histogram, size by size
-        for shape, (weight, keys, top) in t.cut.dropped.items():
-            by_size[max(shape)] = by_size.get(max(shape), 0) + weight
-            turned = shape[::-1]
-            if t.space.dims == 2 and t.cut.dropped.get(turned) != (weight, keys, top):
-                out.append(f"the cut's record of shape {shape} differs from that of its rotation {turned}")
-    for size, total in sorted(by_size.items()):
+    if t.cut is not None and t.space.dims == 2:  # a shape and its rotation hold the same keys
+        for shape, record in t.cut.dropped.items():
+            if t.cut.dropped.get(shape[::-1]) != record:
+                out.append(f"the cut's record of shape {shape} differs from that of its rotation {shape[::-1]}")
+    # the dropped weight is still in the size histogram, size by size
+    for size, total in sorted(t.weight_by_size().items()):
         if size >= len(t.hist_len) or total != per_run * t.hist_len[size]:
             out.append(f"size {size}: the counts disagree with the output-size histogram")
     return out
