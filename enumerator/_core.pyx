@@ -72,6 +72,7 @@ cdef extern from "csrc/ctm_core.h" nogil:
     int ctm_cps1d_plan(ctm_cps_ws *ws, const ctm_machine *mc, const int (*plan)[3], int len)
     int ctm_cps1d_at_cap(ctm_cps_ws *ws, const ctm_machine *mc)
     int ctm_cps_attempts()
+    void ctm_cps_ws_packed(ctm_cps_ws *ws, int on)
     ctypedef struct ctm_run_result:
         int status
         uint64_t steps
@@ -297,11 +298,12 @@ cdef ctm_cps_ws *_ws() except NULL:
 
 
 def cps_prove(int n, int m, const int8_t[:] defined, const uint8_t[:] wr, const int8_t[:] mv,
-              const uint8_t[:] nx, int attempts=-1, plan=None, bint at_cap=False):
+              const uint8_t[:] nx, int attempts=-1, plan=None, bint at_cap=False, bint packed=True):
     """n-gram CPS on one partial 1D machine (defined[e] 1 = MOVE, mv 0 = R, 1 = L):
     the 1-based attempt of the schedule that proved non-halting, or 0. plan: a schedule of
     (window n, history k, log2 of the configurations allowed) instead of the build's.
-    at_cap: the costlier attempts a build adds at the cap (numbered after the others)."""
+    at_cap: the costlier attempts a build adds at the cap (numbered after the others).
+    packed: False runs every attempt on the word-array sets (the same fixed point, slower)."""
     cdef ctm_machine mc
     cdef int rc, i
     cdef int steps[64][3]
@@ -316,6 +318,7 @@ def cps_prove(int n, int m, const int8_t[:] defined, const uint8_t[:] wr, const 
     mc.mv = &mv[0]
     mc.nx = &nx[0]
     cdef ctm_cps_ws *ws = _ws()
+    ctm_cps_ws_packed(ws, packed)
     if plan is not None:
         if len(plan) > 64:
             raise ValueError("a CPS schedule has at most 64 attempts")

@@ -1,6 +1,8 @@
 """Certification: the non-halting proofs never claim a run that halts, the per-size bounds on
 the undecided weight hold, the busy-beaver step bound makes tables exact, and holdouts list
 exactly what remains undecided."""
+import itertools
+
 import numpy as np
 import pytest
 
@@ -453,3 +455,21 @@ def test_sparse_histograms_read_like_the_lists_they_stand_for():
             h[n]
     big = [0] * 10 + [2**70]
     assert Hist.of(big).total() == 2**70 and Hist.of(big)[10] == 2**70
+
+
+@pytest.mark.parametrize("space, cap", [(Space(1, 4, 2), 60), (Space(1, 3, 3), 8), (Space(1, 2, 4), 14)])
+def test_packed_cps_reaches_the_same_fixed_point_as_the_word_arrays(space, cap):
+    """The packed CPS (words in one 128-bit integer) against the word-array one it replaced, on
+    the nodes a build leaves undecided without CPS: the same attempt proves each node, for the
+    build's schedule, the attempts at the cap and windows and histories past 64 bits."""
+    t = build(space, cap, deciders=ALL_BUT_CPS, budget_hours=None, holdouts=True)
+    machines = [line.split()[0] for line in itertools.islice(ho.lines(space, t.holdouts), 0, 3500, 7)]
+    assert len(machines) > 150
+    wide = [(1, 3, 9), (3, 1, 12), (2, 3, 12), (3, 2, 12), (4, 1, 13), (5, 0, 13)]
+    proved = 0
+    for mach in machines:
+        for how in ({}, {"at_cap": True}, {"plan": wide}):
+            got = cps(mach, **how)
+            assert got == cps(mach, packed=False, **how), (mach, how)
+            proved += got > 0
+    assert proved > 100
