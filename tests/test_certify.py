@@ -461,7 +461,9 @@ def test_sparse_histograms_read_like_the_lists_they_stand_for():
 def test_packed_cps_reaches_the_same_fixed_point_as_the_word_arrays(space, cap):
     """The packed CPS (words in one 128-bit integer) against the word-array one it replaced, on
     the nodes a build leaves undecided without CPS: the same attempt proves each node, for the
-    build's schedule, the attempts at the cap and windows and histories past 64 bits."""
+    build's schedule, the attempts at the cap (configurations past 64 bits, (4,2)'s window 4
+    with 4 tags at exactly 128, and (3,3)'s, which do not fit and take the word arrays) and
+    longer windows."""
     t = build(space, cap, deciders=ALL_BUT_CPS, budget_hours=None, holdouts=True)
     machines = [line.split()[0] for line in itertools.islice(ho.lines(space, t.holdouts), 0, 3500, 7)]
     assert len(machines) > 150

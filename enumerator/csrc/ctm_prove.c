@@ -55,6 +55,7 @@ typedef struct {
     uint32_t stamp;
     size_t count, limit, cap;
     int direct, shift;  /* direct: the word is its slot; else slot = hash >> shift */
+    uint32_t mask;      /* slots in use - 1 */
 } pset;
 #endif
 
@@ -246,6 +247,17 @@ static void successor(const cps_ctx *x, const uint16_t *cfg, const uint16_t *g, 
     }
 }
 
+/* The tag histories a cell may carry with k tags, (entries + 1)^k; 0 when the cell values
+ * (m times that) would not fit uint16, so the attempt gives up. */
+static uint32_t tag_period(const ctm_machine *mc, int k) {
+    uint64_t period = 1;
+    for (int i = 0; i <= k; i++) { /* check before the product can wrap */
+        if (period * (uint64_t)mc->m > 65535u) return 0;
+        if (i < k) period *= (uint64_t)(mc->n * mc->m + 1);
+    }
+    return (uint32_t)period;
+}
+
 /* The waiting lists of both representations: room for 2 limit keys, configurations, n-grams. */
 static int links_fit(ctm_cps_ws *ws, size_t limit) {
     if (ws->links_cap >= 2 * limit) return CTM_OK;
@@ -260,16 +272,12 @@ static int links_fit(ctm_cps_ws *ws, size_t limit) {
     return CTM_OK;
 }
 
-/* One CPS attempt with windows of n cells and k history tags per cell. A worklist
+/* One CPS attempt with windows of n cells and cells of m period values (k history tags:
+ * period = tag_period(mc, k)). A worklist
  * over the configurations; each one waits, keyed by the n-1 cells an n-gram must
  * match, for n-grams that arrive after it, so nothing is ever rescanned. */
-static int cps_once(ctm_cps_ws *ws, const ctm_machine *mc, int n, int k, size_t limit) {
-    cps_ctx x = {n, mc->m, mc->n * mc->m, 1, mc};
-    for (int i = 0; i < k; i++) { /* cells must fit uint16: give up before the product can wrap */
-        if ((uint64_t)x.period * (uint64_t)(x.nent + 1) * (uint64_t)x.m > 65535u) return NOT_PROVEN;
-        x.period *= (uint32_t)(x.nent + 1);
-    }
-    if ((uint64_t)x.period * (uint64_t)x.m > 65535u) return NOT_PROVEN;
+static int cps_once(ctm_cps_ws *ws, const ctm_machine *mc, int n, uint32_t period, size_t limit) {
+    cps_ctx x = {n, mc->m, mc->n * mc->m, period, mc};
     const int clen = 2 * n + 2; /* state, left window, head cell, right window */
     wset *L = &ws->sets[0], *R = &ws->sets[1], *C = &ws->sets[2], *K[2] = {&ws->sets[3], &ws->sets[4]};
     wset_reset(L, n, limit);
@@ -363,6 +371,7 @@ static int pset_reset(pset *s, int width, size_t limit) {
     int bits = 6; /* hashed: at least twice the limit, so probes stay short */
     while (((size_t)1 << bits) < 2 * limit) bits++;
     s->shift = 64 - bits;
+    s->mask = s->direct ? PSET_SLOTS - 1 : (uint32_t)(((uint64_t)1 << bits) - 1);
     return CTM_OK;
 }
 
@@ -374,9 +383,8 @@ static inline size_t pset_slot(const pset *s, pkey w) {
 
 /* as wset_put: 1 inserted, 0 present, 2 the set reached its limit; *index the word's index */
 static inline int pset_put(pset *s, pkey w, int32_t *index) {
-    const uint32_t mask = s->direct ? PSET_SLOTS - 1 : (uint32_t)(((uint64_t)1 << (64 - s->shift)) - 1);
     const uint32_t idx_mask = PSET_SLOTS - 1;
-    for (size_t j = pset_slot(s, w);; j = (j + 1) & mask) {
+    for (size_t j = pset_slot(s, w);; j = (j + 1) & s->mask) {
         const uint32_t v = s->slots[j];
         if (v >> PSET_IDX_BITS != s->stamp) {
             if (s->count >= s->limit) return 2;
@@ -392,15 +400,11 @@ static inline int pset_put(pset *s, pkey w, int32_t *index) {
     }
 }
 
-/* Whether an attempt fits the packed sets: a configuration (state and 2n + 1 cells) in 128
- * bits, a direct slot index in PSET_DIRECT_BITS, every index in PSET_IDX_BITS. */
-static int packed_fits(const ctm_machine *mc, int n, int k, size_t limit, int *cell_bits, int *state_bits) {
-    uint64_t values = (uint64_t)mc->m;
-    if (values > 65535u) return 0;
-    for (int i = 0; i < k; i++) {
-        values *= (uint64_t)(mc->n * mc->m + 1);
-        if (values > 65535u) return 0; /* as cps_once: cells fit uint16 */
-    }
+/* Whether an attempt fits the packed sets: a configuration (state and 2n + 1 cells of m period
+ * values) in 128 bits, every index in PSET_IDX_BITS. */
+static int packed_fits(const ctm_machine *mc, int n, uint32_t period, size_t limit, int *cell_bits,
+                       int *state_bits) {
+    const uint64_t values = (uint64_t)mc->m * period;
     int b = 1, sb = 1;
     while (((uint64_t)1 << b) < values) b++;
     while ((1 << sb) < mc->n) sb++;
@@ -414,10 +418,8 @@ static int packed_fits(const ctm_machine *mc, int n, int k, size_t limit, int *c
  * cells in tape order, b bits each: the left window (position 0 farthest out), the head cell
  * at position n, the right window. A move is then a shift, and the cell that enters the window
  * the only thing an n-gram adds: each configuration keeps its successor without that cell. */
-static int cps_packed(ctm_cps_ws *ws, const ctm_machine *mc, int n, int k, size_t limit, int b, int sb) {
+static int cps_packed(ctm_cps_ws *ws, const ctm_machine *mc, int n, uint32_t period, size_t limit, int b, int sb) {
     const int m = mc->m, nent = mc->n * mc->m;
-    uint32_t period = 1;
-    for (int i = 0; i < k; i++) period *= (uint32_t)(nent + 1);
     const pkey one = 1, cm = (one << b) - 1, sm = (one << sb) - 1;
     const pkey win = (one << ((2 * n + 1) * b)) - 1;   /* the cells of a configuration */
     const pkey gmask = (one << (n * b)) - 1;           /* an n-gram */
@@ -526,14 +528,16 @@ int ctm_cps1d_plan(ctm_cps_ws *ws, const ctm_machine *mc, const int (*plan)[3], 
     int found = 0;
     for (int i = 0; i < len && !found; i++) {
         const size_t limit = (size_t)1 << plan[i][2];
+        const uint32_t period = tag_period(mc, plan[i][1]);
+        if (!period) continue; /* the cells would not fit uint16: not proven */
         int rc;
 #ifdef CPS_PACKED
         int b, sb;
-        if (!ws->word_arrays_only && packed_fits(mc, plan[i][0], plan[i][1], limit, &b, &sb))
-            rc = cps_packed(ws, mc, plan[i][0], plan[i][1], limit, b, sb);
+        if (!ws->word_arrays_only && packed_fits(mc, plan[i][0], period, limit, &b, &sb))
+            rc = cps_packed(ws, mc, plan[i][0], period, limit, b, sb);
         else
 #endif
-            rc = cps_once(ws, mc, plan[i][0], plan[i][1], limit);
+            rc = cps_once(ws, mc, plan[i][0], period, limit);
         if (rc < 0) { found = rc; break; }
         if (rc == PROVEN) found = i + 1;
     }
