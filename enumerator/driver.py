@@ -174,10 +174,8 @@ def build(
             raise SpaceError(f"shard {i}/{n} does not exist; use I/N with 0 <= I < N")
     if workers < 1:
         raise SpaceError(f"--workers must be 1 or more, got {workers}")
-    if max_size is not None and (isinstance(max_size, bool) or not isinstance(max_size, int) or max_size < 1
-                                 or shard is not None):
-        raise SpaceError(f"max_size must be a whole number >= 1 on a whole build, got {max_size!r}"
-                         + (" on a shard; cut the merged table instead" if shard is not None else ""))
+    if max_size is not None and (isinstance(max_size, bool) or not isinstance(max_size, int) or max_size < 1):
+        raise SpaceError(f"max_size must be a whole number >= 1, got {max_size!r}")
     if max_size is not None:
         max_size = min(max_size, cap + 1)  # no output is longer: a larger size keeps everything
     t0 = time.perf_counter()

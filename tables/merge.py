@@ -16,11 +16,14 @@ def merge(tables: list[Table], *, command: str = "", builder: str | None = None)
     tables of one space, cap and decider set merge when their seeds differ."""
     if len(tables) < 2:
         raise MergeError("merge needs at least two tables")
+    first = tables[0]
     for t in tables:
-        if t.cut is not None:
+        if t.cut is not None and t.mode == "sampled":
             raise MergeError(f"{t.source} is cut at size {t.cut.max_size}, so its dropped keys cannot be added up; "
                              "merge or extend the uncut tables, then cut the result with ctmtab trim")
-    first = tables[0]
+        if _cut_size(t) != _cut_size(first):
+            raise MergeError(f"{t.source} keeps {_kept(t)}, {first.source} {_kept(first)}; cut every shard "
+                             f"to one size first (ctmtab trim --keep-size N)")
     for t in tables[1:]:
         for key in SAME:
             if t.header.get(key) != first.header.get(key):
@@ -51,11 +54,32 @@ def merge(tables: list[Table], *, command: str = "", builder: str | None = None)
         hint = " (shards " + ", ".join(f"{i}/{of}" for i in shards) + ")" if shards else ""
         raise MergeError(f"{len(missing)} of {count} work units are missing{hint}; add the missing shard files")
     tallies = [t.to_tally() for t in tables]
-    merged = dataclasses.replace(tallies[0], **summed(tallies), covered=None, shard=None, weight=None)
+    merged = dataclasses.replace(tallies[0], **summed(tallies), dropped=_summed_cuts(tallies), covered=None,
+                                 shard=None, weight=None)
     merged.seconds = sum(float(t.header.get("build", {}).get("seconds", 0)) for t in tables)
     merged.check()
     notes = "merged from " + ", ".join(str(t.source) for t in tables)
     return Table.from_tally(merged, command=command, notes=notes, builder=builder)
+
+
+def _cut_size(t: Table) -> int | None:
+    return None if t.cut is None else t.cut.max_size
+
+
+def _kept(t: Table) -> str:
+    return "every key" if t.cut is None else f"keys up to size {t.cut.max_size}"
+
+
+def _summed_cuts(tallies: list) -> dict:
+    """The dropped shapes of cut shards. Weights add exactly; the distinct keys of a shape
+    cannot be counted across shards, and a dropped key's count is at most the sum of its
+    shards' largest counts, itself at most the shape's weight: the record keeps the weight
+    as the bound, as a build cut in the core does (tables/cut.py)."""
+    weights: dict = {}
+    for t in tallies:
+        for shape, (w, _, _) in t.dropped.items():
+            weights[shape] = weights.get(shape, 0) + w
+    return {shape: (w, None, w) for shape, w in sorted(weights.items())}
 
 
 def merge_samples(tables: list[Table], *, command: str = "", builder: str | None = None) -> Table:

@@ -234,7 +234,7 @@ class Table:
         """The exact tally behind this table (for merging)."""
         from ..enumerator.tally import Tally
 
-        if self.cut is not None:
+        if self.cut is not None and self.mode == "sampled":  # a dropped key's moments are gone
             raise TableError(f"{self.source} is cut at size {self.cut.max_size}, so its dropped keys cannot be "
                              "added to another table's; merge or extend the uncut tables, then cut the result")
         m = self.space.symbols
@@ -262,6 +262,8 @@ class Table:
             weight=int(units.get("weight", self.space_size)), plan_ident=units.get("plan", ""),
             depth=units.get("depth", 0), shard=None if shard is None else tuple(shard), **sampled,
             relabelled="symbol-relabelling" in self.header.get("symmetries", []),
+            max_size=None if self.cut is None else self.cut.max_size,
+            dropped={} if self.cut is None else dict(self.cut.dropped),
             **self._certificate_fields(),
         )
 

@@ -119,10 +119,31 @@ def test_cutting_again_only_keeps_fewer_sizes(full32):
         full32.trimmed(0)
 
 
-def test_cut_tables_are_not_merged_or_extended(full32):
+@pytest.mark.parametrize("space, cap, keep", [(Space(1, 4, 2), 107, 7), (Space(2, 3, 2), 2000, 2)])
+def test_cut_shards_merge_to_the_whole_cut_build(space, cap, keep):
+    # A big build runs as shards cut in the core, each small enough to keep; their merge must be
+    # the whole cut build's table key for key, with the dropped weights exact by shape. One
+    # shard is built uncut and trimmed, so its records carry key counts the merge cannot add.
     from ctmtab.tables import merge
+    whole = Table.from_tally(build(space, cap, max_size=keep))
+    shards = [Table.from_tally(build(space, cap, shard=(i, 3), max_size=keep)) for i in (0, 1)]
+    shards.append(Table.from_tally(build(space, cap, shard=(2, 3))).trimmed(keep))
+    merged = loads(merge([loads(t.to_bytes()) for t in shards]).to_bytes())
+    assert dict(merged.items()) == dict(whole.items()) and merged.total == whole.total
+    assert merged.cut.dropped == whole.cut.dropped  # weights exact; no key count; bound = weight
+    assert merged.certificate.by_size == whole.certificate.by_size and problems(merged) == []
+
+
+def test_cut_tables_merge_only_at_one_size_and_sampled_ones_not_at_all(full32):
+    from ctmtab.tables import merge
+    halves = [Table.from_tally(build(Space(1, 3, 2), 21, shard=(i, 2))) for i in (0, 1)]
+    with pytest.raises(MergeError, match="cut every shard to one size first"):
+        merge([halves[0].trimmed(4), halves[1].trimmed(5)])
+    with pytest.raises(MergeError, match="cut every shard to one size first"):
+        merge([halves[0].trimmed(4), halves[1]])
+    s = load("1d-n4-m4-t2000-sampled")
     with pytest.raises(MergeError, match="merge or extend the uncut tables"):
-        merge([full32.trimmed(4), full32.trimmed(4)])
+        merge([s.trimmed(4), s.trimmed(4)])
 
 
 def test_bdm_uses_a_cut_table_up_to_its_size_and_refuses_longer_blocks(full32):
@@ -164,8 +185,13 @@ def test_the_command_line_trims_and_reports_dropped_keys(tmp_path):
     assert "keys up to size 8 kept" in r.stdout
     r = cli("trim", out, "--keep-size", "9")
     assert r.returncode != 0 and "already cut at size 8" in r.stderr and "Traceback" not in r.stderr
-    r = cli("build", "--states", "2", "--keep-size", "3", "--shard", "0/2", "-o", tmp_path / "x.ctmt")
-    assert r.returncode != 0 and "--keep-size cannot cut a shard" in r.stderr
+    r = cli("build", "--states", "2", "--keep-size", "3", "--shard", "0/2", "-o", tmp_path / "a.ctmt")
+    assert r.returncode == 0, r.stderr
+    r = cli("build", "--states", "2", "--keep-size", "3", "--shard", "1/2", "-o", tmp_path / "b.ctmt")
+    assert r.returncode == 0, r.stderr
+    r = cli("merge", tmp_path / "a.ctmt", tmp_path / "b.ctmt", "-o", tmp_path / "ab.ctmt")
+    assert r.returncode == 0 and cli("verify", tmp_path / "ab.ctmt").returncode == 0, r.stderr
+    assert load(tmp_path / "ab.ctmt").cut.max_size == 3
     r = cli("build", "--states", "2", "--keep-size", "0", "-o", tmp_path / "x.ctmt")
     assert r.returncode != 0 and "--keep-size must be 1 or more" in r.stderr
     r = cli("verify", out)

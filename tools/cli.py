@@ -301,9 +301,9 @@ def cmd_build(a) -> int:
         raise CtmtabError("--until needs a sampled build")
     if a.keep_size is not None and a.keep_size < 1:
         raise CtmtabError(f"--keep-size must be 1 or more, got {a.keep_size}")
-    if a.keep_size is not None and (shard or base is not None):
-        raise CtmtabError("--keep-size cannot cut a shard or an extended table (cut keys cannot be added "
-                          "up later); build or merge the whole table, then run ctmtab trim")
+    if a.keep_size is not None and base is not None:
+        raise CtmtabError("--keep-size cannot cut an extended table (its dropped keys' samples could not be "
+                          "added to later); extend the uncut table, then run ctmtab trim")
     seed = 1 if a.seed is None else a.seed
     stem = f"ctm-{space.dims}d-n{space.states}-m{space.symbols}-t{cap}" + (f"-s{seed}" if sampled else "")
     if base is not None and not a.output and not Path(a.extend).is_file():
