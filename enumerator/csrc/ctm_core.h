@@ -7,7 +7,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define CTM_API_VERSION 6
+#define CTM_API_VERSION 7
 
 #define CTM_OK 0
 #define CTM_ENOMEM (-1)    /* an allocation failed */
@@ -68,6 +68,7 @@ int ctm_cps1d_plan(ctm_cps_ws *ws, const ctm_machine *mc, const int (*plan)[3], 
 int ctm_cps_attempts(void);
 /* 0: every attempt on the word-array sets, never the packed ones (tests compare the two) */
 void ctm_cps_ws_packed(ctm_cps_ws *ws, int on);
+void ctm_cps_ws_bitsets(ctm_cps_ws *ws, int on); /* tests: off = never the bitset attempt */
 /* The attempts tried at the cap after those, numbered on from ctm_cps_attempts() + 1. */
 int ctm_cps1d_at_cap(ctm_cps_ws *ws, const ctm_machine *mc);
 

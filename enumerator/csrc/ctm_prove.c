@@ -67,6 +67,7 @@ struct ctm_cps_ws {
     size_t base_cap;
 #endif
     int word_arrays_only;   /* tests: never the packed sets */
+    int no_bitsets;         /* tests: never the bitset attempt */
     int32_t *first[2], *next; /* per waiting key its first configuration; per configuration the next */
     int32_t *gfirst[2], *gnext[2]; /* per key its first matching n-gram; per n-gram the next */
     size_t links_cap;
@@ -508,6 +509,78 @@ static int cps_packed(ctm_cps_ws *ws, const ctm_machine *mc, int n, uint32_t per
 }
 #endif
 
+/* cps_once for binary machines with plain cells (no history) where every configuration fits
+ * a bitset: the state and 2n + 1 bits, packed as in cps_packed. The sets are bit masks, so
+ * the first attempts of the schedule, which nearly every node reaching the CPS meets, cost a
+ * few hundred cycles instead of a set's setup. Used only where the configurations, n-grams
+ * and keys can never reach the attempt's limit, so it reaches the same verdict as the
+ * others: proven exactly when no configuration of the least fixed point may halt. */
+#define CPS_BITS_MAX 4096
+static int bits_fit(const ctm_machine *mc, int n, uint32_t period, size_t limit) {
+    if (mc->m != 2 || period != 1 || n < 1 || n > 5) return 0;
+    const size_t configs = (size_t)mc->n << (2 * n + 1);
+    return configs <= CPS_BITS_MAX && configs <= limit && ((size_t)1 << n) <= limit;
+}
+
+/* Where configuration cf goes: 0 if it may halt; else its successor without the incoming
+ * cell, whether it moves right, and the key an incoming n-gram must match. */
+static inline int bits_step(const ctm_machine *mc, int n, uint32_t cf, uint32_t *base, int *right,
+                            uint32_t *key) {
+    const int cb = 2 * n + 1;
+    const uint32_t cells = cf & ((1u << cb) - 1), kmask = (1u << (n - 1)) - 1;
+    const int e = (int)(cf >> cb) * 2 + (int)(cells >> n & 1u);
+    if (mc->def[e] != 1) return 0;
+    const uint32_t put = (cells & ~(1u << n)) | (uint32_t)mc->wr[e] << n;
+    *right = mc->mv[e] == 0;
+    const uint32_t moved = *right ? put >> 1 : (put << 1) & ((1u << cb) - 1);
+    *base = (uint32_t)mc->nx[e] << cb | moved;
+    *key = *right ? (cells >> (n + 2)) & kmask : cells & kmask;
+    return 1;
+}
+
+static int cps_bits(const ctm_machine *mc, int n) {
+    const int cb = 2 * n + 1, top = 2 * n;
+    uint64_t in_c[CPS_BITS_MAX / 64];
+    uint16_t order[CPS_BITS_MAX]; /* configurations in the order found; [0, done) expanded */
+    memset(in_c, 0, (((size_t)mc->n << cb) + 63) / 64 * sizeof *in_c);
+    size_t found = 0, done = 0;
+    uint32_t gl = 1, gr = 1; /* bit g: n-gram g may occur on the left, on the right (blank: 0) */
+#define BITS_ADD(word)                                                        \
+    do {                                                                      \
+        const uint32_t w_ = (word);                                           \
+        if (!(in_c[w_ >> 6] >> (w_ & 63) & 1u)) {                             \
+            in_c[w_ >> 6] |= (uint64_t)1 << (w_ & 63);                        \
+            order[found++] = (uint16_t)w_;                                    \
+        }                                                                     \
+    } while (0)
+    BITS_ADD(0);
+    while (done < found) {
+        uint32_t base, key;
+        int right;
+        if (!bits_step(mc, n, order[done++], &base, &right, &key)) return NOT_PROVEN;
+        /* the n-gram the move leaves behind: right, the new left window; left, the new right one */
+        const uint32_t gram = right ? base & ((1u << n) - 1) : (base >> (n + 1)) & ((1u << n) - 1);
+        uint32_t *grown = right ? &gl : &gr;
+        if (!(*grown >> gram & 1u)) { /* new: wake the expanded movers the other way that match it */
+            *grown |= 1u << gram;
+            const uint32_t want = right ? gram >> 1 : gram & ((1u << (n - 1)) - 1);
+            const uint32_t in = right ? (gram & 1u) : (gram >> (n - 1)) << top;
+            for (size_t j = 0; j < done; j++) {
+                uint32_t b2, k2;
+                int r2;
+                if (bits_step(mc, n, order[j], &b2, &r2, &k2) && r2 != right && k2 == want) BITS_ADD(b2 | in);
+            }
+        }
+        /* the known n-grams that may enter this configuration's window */
+        for (uint32_t c = 0; c < 2; c++) {
+            if (right ? (gr >> (key | c << (n - 1)) & 1u) : (gl >> (c | key << 1) & 1u))
+                BITS_ADD(base | (right ? c << top : c));
+        }
+    }
+#undef BITS_ADD
+    return PROVEN;
+}
+
 /* The CPS schedule: cheap plain windows first, then short windows with history,
  * ordered by what each proves per unit of work on the 1D (5,2) holdouts.
  * {window n, history k, log2 of the abstract configurations allowed} */
@@ -526,13 +599,18 @@ int ctm_cps1d_plan(ctm_cps_ws *ws, const ctm_machine *mc, const int (*plan)[3], 
     ctm_cps_ws *own = NULL;
     if (!ws && !(ws = own = ctm_cps_ws_new())) return CTM_ENOMEM;
     int found = 0;
+#ifdef CPS_PACKED
+    int b, sb;
+#endif
     for (int i = 0; i < len && !found; i++) {
         const size_t limit = (size_t)1 << plan[i][2];
         const uint32_t period = tag_period(mc, plan[i][1]);
         if (!period) continue; /* the cells would not fit uint16: not proven */
         int rc;
+        if (!ws->word_arrays_only && !ws->no_bitsets && bits_fit(mc, plan[i][0], period, limit))
+            rc = cps_bits(mc, plan[i][0]);
+        else
 #ifdef CPS_PACKED
-        int b, sb;
         if (!ws->word_arrays_only && packed_fits(mc, plan[i][0], period, limit, &b, &sb))
             rc = cps_packed(ws, mc, plan[i][0], period, limit, b, sb);
         else
@@ -552,6 +630,8 @@ int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts) {
 int ctm_cps_attempts(void) { return CPS_PLAN_LEN; }
 
 void ctm_cps_ws_packed(ctm_cps_ws *ws, int on) { ws->word_arrays_only = !on; }
+
+void ctm_cps_ws_bitsets(ctm_cps_ws *ws, int on) { ws->no_bitsets = !on; }
 
 /* Tried at the cap only, on nodes the schedule above left: longer windows and deeper history,
  * which cost more but see only the few nodes that reach the cap undecided. On the 1D (5,2)
