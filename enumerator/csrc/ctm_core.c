@@ -512,6 +512,14 @@ static int sample_halt(ctm_unit *u, const config *c, int e) {
 
 /* ---------------------------------------------------------------- the search, per dimension */
 
+/* An entry's direction and the steps it takes, looked up once when the entry is set. */
+static inline void set_move(ctm_unit *u, int e, int dir) {
+    u->mv[e] = (int8_t)dir;
+    u->eh[e] = u->dh[dir];
+    u->ex[e] = u->dx[dir];
+    u->ey[e] = u->dy[dir];
+}
+
 #define DIM 1
 #include "ctm_search.inc"
 #undef DIM
@@ -542,7 +550,7 @@ int ctm_sample(ctm_unit *u, uint64_t count) {
                 o -= (uint64_t)u->m;
                 u->def[e] = 1;
                 u->wr[e] = (uint8_t)(o / (uint64_t)(ndir * u->n));
-                u->mv[e] = (int8_t)((o / (uint64_t)u->n) % (uint64_t)ndir);
+                set_move(u, e, (int)((o / (uint64_t)u->n) % (uint64_t)ndir));
                 u->nx[e] = (uint8_t)(o % (uint64_t)u->n);
             }
         }

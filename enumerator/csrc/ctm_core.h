@@ -140,6 +140,8 @@ typedef struct {
     ctm_count pow_opts[CTM_MAX_ENTRIES + 1];
     uint16_t path[CTM_MAX_ENTRIES];
     int64_t dx[4], dy[4], dh[4]; /* per direction: coordinate and cell-index steps */
+    int64_t eh[CTM_MAX_ENTRIES], ex[CTM_MAX_ENTRIES], ey[CTM_MAX_ENTRIES]; /* per MOVE entry: its
+                                   steps, so a step loads them with the entry (set_move) */
     uint8_t *tape, *snap, *scratch;
     size_t scratch_cap;
     uint8_t *save_buf[CTM_MAX_ENTRIES + 1]; /* per depth: the box at the branch point */

@@ -542,6 +542,7 @@ static int cps_bits(const ctm_machine *mc, int n) {
     const int cb = 2 * n + 1, top = 2 * n;
     uint64_t in_c[CPS_BITS_MAX / 64];
     uint16_t order[CPS_BITS_MAX]; /* configurations in the order found; [0, done) expanded */
+    uint32_t waits[CPS_BITS_MAX]; /* per expanded one: its key and side above its successor's base */
     memset(in_c, 0, (((size_t)mc->n << cb) + 63) / 64 * sizeof *in_c);
     size_t found = 0, done = 0;
     uint32_t gl = 1, gr = 1; /* bit g: n-gram g may occur on the left, on the right (blank: 0) */
@@ -557,19 +558,17 @@ static int cps_bits(const ctm_machine *mc, int n) {
     while (done < found) {
         uint32_t base, key;
         int right;
-        if (!bits_step(mc, n, order[done++], &base, &right, &key)) return NOT_PROVEN;
+        if (!bits_step(mc, n, order[done], &base, &right, &key)) return NOT_PROVEN;
+        waits[done++] = (key << 1 | (uint32_t)right) << 16 | base;
         /* the n-gram the move leaves behind: right, the new left window; left, the new right one */
         const uint32_t gram = right ? base & ((1u << n) - 1) : (base >> (n + 1)) & ((1u << n) - 1);
         uint32_t *grown = right ? &gl : &gr;
         if (!(*grown >> gram & 1u)) { /* new: wake the expanded movers the other way that match it */
             *grown |= 1u << gram;
-            const uint32_t want = right ? gram >> 1 : gram & ((1u << (n - 1)) - 1);
+            const uint32_t want = (right ? gram >> 1 : gram & ((1u << (n - 1)) - 1)) << 1 | (uint32_t)!right;
             const uint32_t in = right ? (gram & 1u) : (gram >> (n - 1)) << top;
-            for (size_t j = 0; j < done; j++) {
-                uint32_t b2, k2;
-                int r2;
-                if (bits_step(mc, n, order[j], &b2, &r2, &k2) && r2 != right && k2 == want) BITS_ADD(b2 | in);
-            }
+            for (size_t j = 0; j < done; j++)
+                if (waits[j] >> 16 == want) BITS_ADD((waits[j] & 0xffffu) | in);
         }
         /* the known n-grams that may enter this configuration's window */
         for (uint32_t c = 0; c < 2; c++) {
