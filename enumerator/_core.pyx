@@ -71,6 +71,7 @@ cdef extern from "csrc/ctm_core.h" nogil:
     int ctm_cps1d(ctm_cps_ws *ws, const ctm_machine *mc, int max_attempts)
     int ctm_cps1d_plan(ctm_cps_ws *ws, const ctm_machine *mc, const int (*plan)[3], int len)
     int ctm_cps1d_at_cap(ctm_cps_ws *ws, const ctm_machine *mc)
+    int ctm_cps1d_search(ctm_cps_ws *ws, const ctm_machine *mc, int at_cap)
     int ctm_cps_attempts()
     void ctm_cps_ws_packed(ctm_cps_ws *ws, int on)
     void ctm_cps_ws_bitsets(ctm_cps_ws *ws, int on)
@@ -300,14 +301,16 @@ cdef ctm_cps_ws *_ws() except NULL:
 
 def cps_prove(int n, int m, const int8_t[:] defined, const uint8_t[:] wr, const int8_t[:] mv,
               const uint8_t[:] nx, int attempts=-1, plan=None, bint at_cap=False, bint packed=True,
-              bint bitsets=True):
+              bint bitsets=True, stage=None):
     """n-gram CPS on one partial 1D machine (defined[e] 1 = MOVE, mv 0 = R, 1 = L):
     the 1-based attempt of the schedule that proved non-halting, or 0. plan: a schedule of
     (window n, history k, log2 of the configurations allowed) instead of the build's.
     at_cap: the costlier attempts a build adds at the cap (numbered after the others).
     packed: False runs every attempt on the word-array sets (the same fixed point, slower).
     bitsets: False never uses the bit masks of binary plain-window attempts (the same fixed
-    point again), so a test can compare all three."""
+    point again), so a test can compare all three. stage: "early" or "cap", what the 1D search
+    tries at its early step or at the cap (for binary machines not the schedule above: see
+    ctm_cps1d_search), numbered within that stage."""
     cdef ctm_machine mc
     cdef int rc, i
     cdef int steps[64][3]
@@ -324,7 +327,11 @@ def cps_prove(int n, int m, const int8_t[:] defined, const uint8_t[:] wr, const 
     cdef ctm_cps_ws *ws = _ws()
     ctm_cps_ws_packed(ws, packed)
     ctm_cps_ws_bitsets(ws, bitsets)
-    if plan is not None:
+    if stage not in (None, "early", "cap"):
+        raise ValueError("stage is 'early' or 'cap'")
+    if stage is not None:
+        rc = ctm_cps1d_search(ws, &mc, stage == "cap")
+    elif plan is not None:
         if len(plan) > 64:
             raise ValueError("a CPS schedule has at most 64 attempts")
         for i in range(len(plan)):

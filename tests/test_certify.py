@@ -279,6 +279,53 @@ def test_holdouts_in_2d_name_the_box():
         assert set(mach) <= set("0123456789NESWAB-_") and "x" in size
 
 
+def test_binary_search_tries_plain_windows_early_and_history_at_the_cap():
+    """The 1D search's two CPS stages (DEVELOPERS.md): binary machines get windows 1-4 without
+    history at the early step (bit masks) and the attempts with history at the cap; 3 or more
+    symbols keep the schedule and its cap attempts. Every proof of either stage must hold: on
+    1D (4,2) holdouts at cap 130 (found without the CPS), each machine a stage proves runs
+    5,000 steps in the one-machine simulator, which shares no code with the CPS, without
+    meeting an undefined entry."""
+    from ctmtab.enumerator import plan
+    from ctmtab.enumerator.machine import run
+    space = Space(1, 4, 2)
+    p = plan(space, 130, None, ALL_BUT_CPS)
+    early = late = 0
+    for unit in p.units[::40]:
+        r = _core.run_unit(1, 4, 2, 130, 15, unit.prefix, -1, True)
+        for line in ho.lines(space, [r["holdouts"]]):
+            mach = line.split()[0]
+            e, c = cps(mach, stage="early"), cps(mach, stage="cap")
+            if e:
+                early += 1
+                plain = cps(mach, plan=[(w, 0, 12) for w in (1, 2, 3, 4)])
+                assert plain and cps(mach, plan=[(w, 0, 12) for w in range(1, plain)]) == 0
+            elif c:
+                late += 1
+                assert cps(mach, plan=[(w, 0, 16) for w in (1, 2, 3, 4)]) == 0  # it needs history
+            if e or c:
+                assert run(mach, 5_000).status != "undefined", mach
+    assert early > 100 and late > 10
+    # the example of a proof that needs history: left early, proven at the cap's first attempt
+    mach = "0RB1LC_0RC1RB_0LD0RC_1LA---"
+    assert cps(mach, stage="early") == 0 and cps(mach, stage="cap") == 1
+    assert cps(mach, plan=[(2, 2, 11)]) == 1
+    with pytest.raises(ValueError, match="stage"):
+        cps(mach, stage="late")
+    # 3 symbols: the stages are the schedule and its cap attempts, attempt for attempt
+    space3 = Space(1, 2, 3)
+    p3 = plan(space3, 30, None, ALL_BUT_CPS)
+    seen = 0
+    for unit in p3.units[::10]:
+        r = _core.run_unit(1, 2, 3, 30, 15, unit.prefix, -1, True)
+        for line in ho.lines(space3, [r["holdouts"]]):
+            mach = line.split()[0]
+            assert cps(mach, stage="early") == cps(mach)
+            assert cps(mach, stage="cap") == cps(mach, at_cap=True)
+            seen += 1
+    assert seen > 10
+
+
 @pytest.mark.ci_slow
 def test_cps_proofs_on_52_holdouts_survive_a_long_run():
     """1D (5,2) at cap 500, a few work units run without the CPS: every node the CPS then
@@ -294,9 +341,9 @@ def test_cps_proofs_on_52_holdouts_survive_a_long_run():
         r = _core.run_unit(1, 5, 2, 500, 15, unit.prefix, -1, True)
         for line in ho.lines(space, [r["holdouts"]]):
             mach = line.split()[0]
-            if cps(mach) or cps(mach, at_cap=True):
+            if cps(mach) or cps(mach, at_cap=True) or cps(mach, stage="early") or cps(mach, stage="cap"):
                 proved += 1
-                at_cap += cps(mach) == 0
+                at_cap += cps(mach, stage="early") == 0
                 assert run(mach, 20_000).status != "undefined", mach
     assert proved > 1000 and at_cap > 0
 

@@ -444,7 +444,7 @@ static int translated2(ctm_unit *u, int side, int state, int64_t x, int64_t y, c
 static int try_cps(ctm_unit *u, int at_cap) {
     if (!u->cps_ws && !(u->cps_ws = ctm_cps_ws_new())) return CTM_ENOMEM;
     ctm_machine mc = {u->n, u->m, u->def, u->wr, u->mv, u->nx};
-    return at_cap ? ctm_cps1d_at_cap(u->cps_ws, &mc) : ctm_cps1d(u->cps_ws, &mc, ctm_cps_attempts());
+    return ctm_cps1d_search(u->cps_ws, &mc, at_cap);
 }
 
 /* 2D: the CPS of the 1D machine made of the E (R) and W (L) moves, every N or S move

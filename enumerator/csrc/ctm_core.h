@@ -7,7 +7,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define CTM_API_VERSION 7
+#define CTM_API_VERSION 8
 
 #define CTM_OK 0
 #define CTM_ENOMEM (-1)    /* an allocation failed */
@@ -71,6 +71,9 @@ void ctm_cps_ws_packed(ctm_cps_ws *ws, int on);
 void ctm_cps_ws_bitsets(ctm_cps_ws *ws, int on); /* tests: off = never the bitset attempt */
 /* The attempts tried at the cap after those, numbered on from ctm_cps_attempts() + 1. */
 int ctm_cps1d_at_cap(ctm_cps_ws *ws, const ctm_machine *mc);
+/* What the 1D search tries at its early step (at_cap 0) and at the cap (1): the two above for
+ * 3 or more symbols; for 2, the plain windows early and the history attempts at the cap. */
+int ctm_cps1d_search(ctm_cps_ws *ws, const ctm_machine *mc, int at_cap);
 
 const char *ctm_strerror(int code);
 

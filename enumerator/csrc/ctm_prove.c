@@ -542,8 +542,11 @@ static int cps_bits(const ctm_machine *mc, int n) {
     const int cb = 2 * n + 1, top = 2 * n;
     uint64_t in_c[CPS_BITS_MAX / 64];
     uint16_t order[CPS_BITS_MAX]; /* configurations in the order found; [0, done) expanded */
-    uint32_t waits[CPS_BITS_MAX]; /* per expanded one: its key and side above its successor's base */
+    uint16_t succ[CPS_BITS_MAX];  /* per expanded one: its successor's base */
+    int16_t later[CPS_BITS_MAX];  /* the expanded one before it that waits on the same key and side */
+    int16_t last[64];             /* by key << 1 | side: the last expanded one waiting on it, or -1 */
     memset(in_c, 0, (((size_t)mc->n << cb) + 63) / 64 * sizeof *in_c);
+    memset(last, 0xff, sizeof last);
     size_t found = 0, done = 0;
     uint32_t gl = 1, gr = 1; /* bit g: n-gram g may occur on the left, on the right (blank: 0) */
 #define BITS_ADD(word)                                                        \
@@ -559,7 +562,10 @@ static int cps_bits(const ctm_machine *mc, int n) {
         uint32_t base, key;
         int right;
         if (!bits_step(mc, n, order[done], &base, &right, &key)) return NOT_PROVEN;
-        waits[done++] = (key << 1 | (uint32_t)right) << 16 | base;
+        const uint32_t kw = key << 1 | (uint32_t)right;
+        succ[done] = (uint16_t)base;
+        later[done] = last[kw];
+        last[kw] = (int16_t)done++;
         /* the n-gram the move leaves behind: right, the new left window; left, the new right one */
         const uint32_t gram = right ? base & ((1u << n) - 1) : (base >> (n + 1)) & ((1u << n) - 1);
         uint32_t *grown = right ? &gl : &gr;
@@ -567,8 +573,8 @@ static int cps_bits(const ctm_machine *mc, int n) {
             *grown |= 1u << gram;
             const uint32_t want = (right ? gram >> 1 : gram & ((1u << (n - 1)) - 1)) << 1 | (uint32_t)!right;
             const uint32_t in = right ? (gram & 1u) : (gram >> (n - 1)) << top;
-            for (size_t j = 0; j < done; j++)
-                if (waits[j] >> 16 == want) BITS_ADD((waits[j] & 0xffffu) | in);
+            for (int j = last[want]; j >= 0; j = later[j])
+                BITS_ADD(succ[j] | in);
         }
         /* the known n-grams that may enter this configuration's window */
         for (uint32_t c = 0; c < 2; c++) {
@@ -641,4 +647,22 @@ static const int cps_cap_plan[][3] = {{3, 4, 13}, {4, 4, 14}, {4, 2, 14}};
 int ctm_cps1d_at_cap(ctm_cps_ws *ws, const ctm_machine *mc) {
     int rc = ctm_cps1d_plan(ws, mc, cps_cap_plan, CPS_CAP_PLAN_LEN);
     return rc > 0 ? CPS_PLAN_LEN + rc : rc;
+}
+
+/* The 1D search on binary machines splits its attempts otherwise: the plain windows 1-4 run on
+ * bit masks in a few thousand cycles, so they alone are tried at the early step; the attempts
+ * with history wait for the cap, which most of the nodes they would meet never reach (they
+ * halt, branch or cycle first). On three 1D (6,2) units at cap 1,000 this saved about a fifth
+ * of the CPU time and left fewer nodes undecided; on (5,2) at cap 500, 9% and 19 nodes fewer.
+ * (2,3) and (2,1) come last: they rescue a few nodes in a thousand that the others leave. */
+static const int cps_binary_early[][3] = {{1, 0, 9}, {2, 0, 10}, {3, 0, 11}, {4, 0, 12}};
+static const int cps_binary_late[][3] = {
+    {2, 2, 11}, {2, 4, 12}, {3, 2, 12}, {3, 4, 13}, {4, 2, 14}, {4, 4, 14}, {2, 3, 12}, {2, 1, 11},
+};
+
+int ctm_cps1d_search(ctm_cps_ws *ws, const ctm_machine *mc, int at_cap) {
+    if (mc->m != 2) return at_cap ? ctm_cps1d_at_cap(ws, mc) : ctm_cps1d(ws, mc, CPS_PLAN_LEN);
+    if (!at_cap)
+        return ctm_cps1d_plan(ws, mc, cps_binary_early, (int)(sizeof cps_binary_early / sizeof *cps_binary_early));
+    return ctm_cps1d_plan(ws, mc, cps_binary_late, (int)(sizeof cps_binary_late / sizeof *cps_binary_late));
 }
