@@ -12,10 +12,8 @@ def main(paths):
     halting = undecided = space = 0
     by_step = defaultdict(int)
     by_span = defaultdict(int)
-    shards = []
     for path in paths:
         t = load(path)
-        shards.append(t.header["build"].get("shard"))
         halting += t.halting
         undecided += t.undecided
         space = t.space_size

@@ -4,8 +4,7 @@
 # so running this again on any machine continues the build. Needs ctmtab installed
 # (python3 -m pip install .). LANES shards run at once, WORKERS workers each (default 2 x 1: a
 # shard ends on one long unit, so a lane per core keeps both cores busy to the end).
-# When all 16 files are here:
-#   ctmtab merge -o ctm-1d-n6-m2-t1000-upto18.ctmt ctm-1d-n6-m2-t1000-shard*of16.ctmt
+# When all 16 files are here, finish.sh merges and verifies them.
 set -u
 cd "$(dirname "$0")"
 LANES=${LANES:-2}
