@@ -27,7 +27,12 @@ NODES_PER_SECOND = 1.5e6     # branch points at m = 2; each tallies m HALT leave
 UNIT_SECONDS = 8e-5          # per unit: Python, the executor, the merge
 CELL_SECONDS = 8e-12         # per 2D unit and grid cell (the grid is mapped lazily)
 PROBE_CELL_SECONDS = 8e-11   # what a probe pays per grid cell to set up, before any walk
-CPS_SECONDS_PER_NODE = 1.5e-6  # the CPS per branch point of the tree: 1D (5,2) cap 500 (README.md)
+# The CPS per branch point of the tree. Binary machines try cheap windows early and the costly
+# attempts only at the cap (ctm_cps1d_search): fitted to the quiet one-worker shards 4-7, 12 and
+# 13 of 1D (6,2) cap 1000 (shards/1d-n6-m2-t1000/build.log; the model was within 15% of each)
+# and, 25% above, to (5,2) cap 500. 3+ symbols try every attempt at step 128: 1D (3,3) cap 10000.
+CPS_SECONDS_PER_NODE = 0.5e-6
+CPS_SECONDS_PER_NODE_MULTI = 3.5e-6
 PILOT_UNITS = 48             # units a pilot estimate probes when probing all of them would cost
 DEFAULT_BUDGET_HOURS = 24.0
 
@@ -73,8 +78,18 @@ class Estimate:
         """Single-core seconds."""
         rate = STEPS_PER_SECOND if self.dims == 1 else STEPS_PER_SECOND_2D
         per_unit = UNIT_SECONDS + (CELL_SECONDS * self.cells if self.dims == 2 else 0.0)
-        node_rate = NODES_PER_SECOND if not self.cps else 1 / (1 / NODES_PER_SECOND + CPS_SECONDS_PER_NODE)
+        cps = CPS_SECONDS_PER_NODE if self.symbols == 2 else CPS_SECONDS_PER_NODE_MULTI
+        node_rate = NODES_PER_SECOND if not self.cps else 1 / (1 / NODES_PER_SECOND + cps)
         return self.steps / rate + self.nodes * self.symbols / 2 / node_rate + self.units * per_unit
+
+
+def _cpu_time(seconds: float) -> str:
+    """An estimate in the unit that keeps it readable (a tight --budget-hours meets small ones)."""
+    if seconds >= 36_000:
+        return f"{seconds / 3600:,.0f} CPU-hours"
+    if seconds >= 3600:
+        return f"{seconds / 3600:.1f} CPU-hours"
+    return f"{seconds / 60:.1f} CPU-minutes" if seconds >= 60 else f"{seconds:.1f} CPU-seconds"
 
 
 def _grid_cells(space: Space, cap: int) -> int:
@@ -190,7 +205,7 @@ def build(
         if est.seconds / share > budget_hours * 3600:
             raise TooLargeError(
                 f"an exhaustive {space.label} build at cap {cap} is estimated at "
-                f"{est.seconds / share / 3600:,.0f} CPU-hours, over the budget of {budget_hours:g}; "
+                f"{_cpu_time(est.seconds / share)}, over the budget of {budget_hours:g} CPU-hours; "
                 "lower --max-steps, use fewer states or symbols, split it with --shard, or raise --budget-hours"
             )
     if p is None:

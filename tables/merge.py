@@ -10,7 +10,7 @@ from .table import Table
 SAME = ("space", "cap", "mode", "formalism", "blanks", "deciders")
 
 
-def merge(tables: list[Table], *, command: str = "", builder: str | None = None) -> Table:
+def merge(tables: list[Table], *, command: str = "", builder: str | None = None, notes: str = "") -> Table:
     """Sum shards of one build. Refuses tables of another space, cap or build,
     a shard given twice, overlapping shards, and an incomplete set. Sampled
     tables of one space, cap and decider set merge when their seeds differ."""
@@ -30,7 +30,7 @@ def merge(tables: list[Table], *, command: str = "", builder: str | None = None)
                 raise MergeError(f"{t.source} differs from {first.source} in {key} "
                                  f"({t.header.get(key)!r} vs {first.header.get(key)!r}); only one build's parts merge")
     if first.mode == "sampled":
-        return merge_samples(tables, command=command, builder=builder)
+        return merge_samples(tables, command=command, builder=builder, notes=notes)
     units = [t.header.get("units", {}) for t in tables]
     for t, u in zip(tables, units):
         if u.get("covered") == "all":
@@ -58,8 +58,12 @@ def merge(tables: list[Table], *, command: str = "", builder: str | None = None)
                                  shard=None, weight=None)
     merged.seconds = sum(float(t.header.get("build", {}).get("seconds", 0)) for t in tables)
     merged.check()
-    notes = "merged from " + ", ".join(str(t.source) for t in tables)
-    return Table.from_tally(merged, command=command, notes=notes, builder=builder)
+    return Table.from_tally(merged, command=command, notes=_notes(notes, tables), builder=builder)
+
+
+def _notes(notes: str, tables: list[Table]) -> str:
+    parts = "merged from " + ", ".join(str(t.source) for t in tables)
+    return f"{notes}; {parts}" if notes else parts
 
 
 def _cut_size(t: Table) -> int | None:
@@ -82,14 +86,13 @@ def _summed_cuts(tallies: list) -> dict:
     return {shape: (w, None, w) for shape, w in sorted(weights.items())}
 
 
-def merge_samples(tables: list[Table], *, command: str = "", builder: str | None = None) -> Table:
+def merge_samples(tables: list[Table], *, command: str = "", builder: str | None = None, notes: str = "") -> Table:
     """One sampled table from sampled tables drawn under different seeds: exact sums of the
     counts, moments, totals and histograms. A seed in two tables is refused."""
     for t in tables:
         check_expansion(t)
     merged = combine_samples([t.to_tally() for t in tables], [str(t.source) for t in tables])
-    notes = "merged from " + ", ".join(str(t.source) for t in tables)
-    return Table.from_tally(merged, command=command, notes=notes, builder=builder)
+    return Table.from_tally(merged, command=command, notes=_notes(notes, tables), builder=builder)
 
 
 def check_expansion(t: Table) -> None:

@@ -43,9 +43,15 @@ def test_space_too_large_for_exact_counts_is_refused():
 
 
 def test_hopeless_exhaustive_request_is_refused_before_work():
-    # (7,2) at cap 1000: the estimate is about 1,500 CPU-hours, far over the 24-hour default
+    # (7,2) at cap 1000: the estimate is about 1,000 CPU-hours, far over the 24-hour default
     with pytest.raises(TooLargeError, match="CPU-hours"):
         build(Space(1, 7, 2), 1000)
+
+
+def test_a_small_estimate_over_a_tight_budget_is_shown_in_a_readable_unit():
+    # (4,2) costs well under a CPU-minute: "0 CPU-hours" would say nothing
+    with pytest.raises(TooLargeError, match=r"estimated at [0-9.]+ CPU-seconds, over the budget of 1e-07 CPU-hours"):
+        build(Space(1, 4, 2), 107, budget_hours=1e-7)
 
 
 def test_estimate_tracks_the_real_search():

@@ -129,9 +129,14 @@ def test_merge_through_a_symlink(tmp_path):
     real = tmp_path / "merged.ctmt"
     link = tmp_path / "link.ctmt"
     link.symlink_to(real)
-    r = ctm("merge", "-o", link, *shards)
+    r = ctm("merge", "-o", link, *shards, "--builder", "Ostrava lab", "--notes", "cap from the data")
     assert r.returncode == 0, r.stderr
-    assert link.is_symlink() and load(real).halting == load(shards[0]).halting + load(shards[1]).halting
+    merged = load(real)
+    assert link.is_symlink() and merged.halting == load(shards[0]).halting + load(shards[1]).halting
+    # who merged it and why, with the parts listed after the given notes
+    assert merged.header["build"]["by"] == "Ostrava lab"
+    assert merged.header["notes"].startswith("cap from the data; merged from ")
+    assert str(shards[1]) in merged.header["notes"]
 
 
 @pytest.mark.parametrize("how", ["same", "symlink", "hardlink"])

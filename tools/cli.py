@@ -131,6 +131,9 @@ def _parser() -> argparse.ArgumentParser:
     p = sub.add_parser("merge", help="combine tables of one build into one")
     p.add_argument("-o", "--output", required=True)
     p.add_argument("tables", nargs="+")
+    p.add_argument("--notes", default="", help="free text stored in the header, before the list of parts")
+    p.add_argument("--builder", default=None,
+                   help="who merged it, stored in the header; default $CTMTAB_BUILDER, else nothing")
 
     p = sub.add_parser("export", help="write the counts as CSV or JSON")
     p.add_argument("table")
@@ -572,7 +575,7 @@ def cmd_trim(a) -> int:
 def cmd_merge(a) -> int:
     from ..tables import load, merge
 
-    merge([load(p) for p in a.tables], command=_command()).save(a.output)
+    merge([load(p) for p in a.tables], command=_command(), builder=a.builder, notes=a.notes).save(a.output)
     return 0
 
 

@@ -10,7 +10,8 @@ for i in $(seq 0 15); do
   shards+=("$f")
 done
 out=${OUT:-ctm-1d-n6-m2-t1000-upto18.ctmt}
-python3 -m ctmtab merge -o "$out" "${shards[@]}"
+python3 -m ctmtab merge -o "$out" "${shards[@]}" --builder "${CTMTAB_BUILDER:-ctmtab team}" \
+  --notes "1D (6,2) at cap 1000 (chosen from the data, shards/1d-n6-m2-t1000/README.md), keys kept up to length 18"
 python3 -m ctmtab verify "$out"
 python3 -m ctmtab info "$out"
 python3 cap_report.py "${shards[@]}"
