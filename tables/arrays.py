@@ -55,12 +55,21 @@ def fits_code64(m: int, length: int) -> bool:
 
 
 def codes_of(symbols: np.ndarray, m: int) -> np.ndarray:
-    """Rows of symbols (N x L) -> uint64 base-m codes."""
+    """Rows of symbols (N x L, each in 0..m-1) -> uint64 base-m codes."""
     symbols = np.asarray(symbols)
-    code = np.zeros(symbols.shape[0], dtype=np.uint64)
+    n, length = symbols.shape
+    if m == 2 and 0 < length <= 64:  # binary: the rows' bits packed, read as one big-endian word
+        words = np.zeros((n, 8), dtype=np.uint8)
+        words[:, :(length + 7) // 8] = np.packbits(symbols.astype(np.uint8, copy=False), axis=1)
+        code = words.view(">u8").reshape(n).astype(np.uint64)
+        code >>= np.uint64(64 - length)
+        return code
+    code = np.zeros(n, dtype=np.uint64)
     mm = np.uint64(m)
-    for j in range(symbols.shape[1]):
-        code = code * mm + symbols[:, j].astype(np.uint64)
+    unsigned = symbols.dtype.kind in "bu"  # a signed column would send uint64 sums through float64
+    for j in range(length):  # in place: one temporary at most per column
+        code *= mm
+        code += symbols[:, j] if unsigned else symbols[:, j].astype(np.uint64)
     return code
 
 
