@@ -272,3 +272,28 @@ def test_a_record_cut_in_the_core_must_bound_by_its_weight(full32):
 def test_a_huge_keep_size_keeps_everything_without_overflow(full32):
     t = Table.from_tally(build(Space(1, 3, 2), 21, max_size=10**20))
     assert t.cut.max_size == 22 and dict(t.items()) == dict(full32.items())
+
+
+def test_the_shipped_6_state_table_covers_every_string_to_length_16_and_bdm_needs_no_fallback():
+    # (4n+2)^(2n) machines, OEIS A141475's formula, at n = 6: 26^12
+    t = load("1d-n6-m2-t1000-upto18")
+    assert t.space_size == 26 ** 12 == 95_428_956_661_682_176
+    assert t.cut.max_size == 18 and problems(t) == []
+    assert all(len(t.groups[(n,)]) == 2 ** n for n in range(1, 17))
+    assert len(t.groups[(17,)]) < 2 ** 17  # 131,070: two strings of length 17 never appear
+    # blocks of 12: the (5,2) table misses 2 of the 4,096 (REFERENCES.md: complete to 11), this one none
+    x = np.random.default_rng(2026).integers(0, 2, 12 * 20_000)
+    assert BDM(t, 12).fallbacks(x) == 0
+    assert BDM(load("1d-n5-m2-t500"), 12).fallbacks(x) > 0
+    # a dropped key: no value, a certified lower bound from the dropped weight of its length
+    out = t.lookup(["0" * 19])
+    assert out["dropped"][0] and np.isnan(out["ctm"][0])
+    # a key's count is at most its length's dropped weight w plus the undecided runs U that can still
+    # reach that length, so P <= (w + U) / (H + U) (README: the per-size bounds, and cut tables)
+    w, u = t.cut.dropped[(19,)][2], t.undecided_reach((19,))
+    assert out["ctm_low"][0] == pytest.approx(math.log2(t.total + u) - math.log2(w + u), abs=1e-9)
+    assert 15 < out["ctm_low"][0] <= math.log2(t.total) - math.log2(w)
+    # each string's mirror image and complement come from mirrored / blank-swapped machines
+    for key in ("0111010010", "1100101000011"):
+        mirror, swapped = key[::-1], key.translate(str.maketrans("01", "10"))
+        assert t.count(key) == t.count(mirror) == t.count(swapped) > 0

@@ -174,7 +174,7 @@ def test_shipped_tables_load_by_name_and_verify():
     names = shipped()
     assert {"1d-n1-m2-t1", "1d-n2-m2-t6", "1d-n3-m2-t21", "1d-n4-m2-t107", "1d-n2-m3-t38",
             "1d-n5-m2-t500", "2d-n1-m2-t2000", "2d-n2-m2-t2000", "2d-n3-m2-t2000",
-            "2d-n4-m2-t2000"} <= set(names)
+            "2d-n4-m2-t2000", "1d-n6-m2-t1000-upto18", "2d-n5-m2-t100-upto4"} <= set(names)
     for name in names:
         assert problems(load(name)) == [], name
     t = load("1d-n4-m2")
