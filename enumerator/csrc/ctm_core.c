@@ -60,6 +60,8 @@ int ctm_unit_init(ctm_unit *u) {
     u->ndef = 0;
     u->sym = 0;
     memset(u->def, 0, sizeof u->def);
+    memset(u->tr, 0, sizeof u->tr);
+    for (int s = 0; s < u->n; s++) u->sb_state[s * u->m] = (uint8_t)s;
     int ndir = u->dims == 1 ? 2 : 4;
     ctm_count opts = (ctm_count)(ndir * u->n * u->m + u->m);
     ctm_count limit = ~(ctm_count)0 / (16 * (ctm_count)u->m); /* room for symmetry and blanks */
@@ -194,6 +196,18 @@ static int escapes(const ctm_unit *u, int state, int dir) {
         int e = state * u->m;
         if (!u->def[e] || u->mv[e] != dir) return 0;
         state = u->nx[e];
+    }
+}
+
+/* The same for the 1D loop, from sb = state * m, on the entry words. */
+static int escapes_sb(const ctm_unit *u, uint32_t sb, uint32_t left) {
+    uint64_t seen = 0;
+    for (;;) {
+        if (seen & (1ull << sb)) return 1;
+        seen |= 1ull << sb;
+        const uint32_t t = u->tr[sb];
+        if ((t & 3u) != 1u || (t >> 2 & 1u) != left) return 0;
+        sb = t >> 16;
     }
 }
 
@@ -520,6 +534,61 @@ static inline void set_move(ctm_unit *u, int e, int dir) {
     u->ey[e] = u->dy[dir];
 }
 
+/* The 1D step loop's state; cl, cc, cr: the cells left of, under and right of the head. */
+typedef struct {
+    uint32_t sb, cl, cc, cr;  /* sb: state * m */
+    int64_t head, step, xlo, xhi, back_r, back_l, lam, power;
+    uint32_t snap_sb;         /* the cycler snapshot's state * m and head */
+    int64_t snap_head;
+} loop1d;
+
+#define RUN1_STOP 0  /* reached step `stop` */
+#define RUN1_UNDEF 1 /* the next entry is not a MOVE: nothing done */
+#define RUN1_EVENT 2 /* a step was taken onto a record cell, onto the snapshot's state and
+                        head, or on the step that takes a snapshot: the caller finishes it */
+
+/* Plain 1D steps until stop or an event. A small function of its own, so that its state stays
+ * in registers: the cells around the head are kept there too (every write is still stored, so
+ * the tape stays current), and a step waits on one load, the entry word, instead of two. */
+static int __attribute__((noinline)) run_1d(const uint32_t *restrict tr, uint8_t *restrict tape, loop1d *r,
+                                            int64_t stop, int cyc) {
+    uint32_t sb = r->sb, cl = r->cl, cc = r->cc, cr = r->cr;
+    int64_t head = r->head, step = r->step, back_r = r->back_r, back_l = r->back_l, lam = r->lam;
+    const int64_t xlo = r->xlo, xhi = r->xhi, snap_head = r->snap_head;
+    const int64_t last = cyc ? r->power - 1 : INT64_MAX; /* lam reaching power is an event */
+    const uint32_t snap_sb = cyc ? r->snap_sb : UINT32_MAX;
+    int ev = RUN1_STOP;
+    while (step < stop) {
+        const uint32_t t = tr[sb + cc];
+        if ((t & 3u) != 1u) { ev = RUN1_UNDEF; break; }
+        const uint32_t w = t >> 8 & 0xffu, left = t >> 2 & 1u;
+        tape[head] = (uint8_t)w;
+        sb = t >> 16;
+        step++;
+        head += left ? -1 : 1;
+        const uint32_t nl = tape[head - 1], nr = tape[head + 1];
+        cc = left ? cl : cr;
+        cl = left ? nl : w;
+        cr = left ? w : nr;
+        if (head < xlo || head > xhi || (sb == snap_sb && head == snap_head) || lam == last) {
+            ev = RUN1_EVENT;
+            break;
+        }
+        back_r = head < back_r ? head : back_r;
+        back_l = head > back_l ? head : back_l;
+        lam += cyc;
+    }
+    r->sb = sb; r->cl = cl; r->cc = cc; r->cr = cr;
+    r->head = head; r->step = step; r->back_r = back_r; r->back_l = back_l; r->lam = lam;
+    return ev;
+}
+
+/* The entry word of the 1D loop, after def, wr, mv and nx of entry e changed. */
+static inline void set_tr(ctm_unit *u, int e) {
+    const uint32_t d = (uint32_t)u->def[e] & 3u;
+    u->tr[e] = d == 1 ? 1u | (uint32_t)(u->mv[e] == 1) << 2 | (uint32_t)u->wr[e] << 8 | (uint32_t)(u->nx[e] * u->m) << 16 : d;
+}
+
 #define DIM 1
 #include "ctm_search.inc"
 #undef DIM
@@ -545,6 +614,7 @@ int ctm_sample(ctm_unit *u, uint64_t count) {
             uint64_t o = next_rand(u) % opts;
             if (o < (uint64_t)u->m) { /* HALT(write o) */
                 u->def[e] = 2; u->wr[e] = (uint8_t)o; u->mv[e] = -1; u->nx[e] = 0;
+                set_tr(u, e);
                 halts = 1;
             } else {
                 o -= (uint64_t)u->m;
@@ -552,6 +622,7 @@ int ctm_sample(ctm_unit *u, uint64_t count) {
                 u->wr[e] = (uint8_t)(o / (uint64_t)(ndir * u->n));
                 set_move(u, e, (int)((o / (uint64_t)u->n) % (uint64_t)ndir));
                 u->nx[e] = (uint8_t)(o % (uint64_t)u->n);
+                set_tr(u, e);
             }
         }
         u->ndef = u->nent;
@@ -565,6 +636,7 @@ int ctm_sample(ctm_unit *u, uint64_t count) {
         if (rc) return rc;
     }
     memset(u->def, 0, sizeof u->def);
+    memset(u->tr, 0, sizeof u->tr);
     u->ndef = 0;
     return CTM_OK;
 }

@@ -654,10 +654,14 @@ int ctm_cps1d_at_cap(ctm_cps_ws *ws, const ctm_machine *mc) {
  * with history wait for the cap, which most of the nodes they would meet never reach (they
  * halt, branch or cycle first). On three 1D (6,2) units at cap 1,000 this saved about a fifth
  * of the CPU time and left fewer nodes undecided; on (5,2) at cap 500, 9% and 19 nodes fewer.
- * (2,3) and (2,1) come last: they rescue a few nodes in a thousand that the others leave. */
+ * The late attempts come in the order that proves the nodes meeting them soonest: measured
+ * per attempt (cycles, proven or not) on 930,000 such nodes of six (6,2) units and ordered by
+ * a local search, it costs 19% less than the order by window size on the half of them held
+ * out. The order changes no verdict: a node is proven when any attempt proves it, and the
+ * nodes none proves pay for every attempt in any order. */
 static const int cps_binary_early[][3] = {{1, 0, 9}, {2, 0, 10}, {3, 0, 11}, {4, 0, 12}};
 static const int cps_binary_late[][3] = {
-    {2, 2, 11}, {2, 4, 12}, {3, 2, 12}, {3, 4, 13}, {4, 2, 14}, {4, 4, 14}, {2, 3, 12}, {2, 1, 11},
+    {3, 4, 13}, {2, 1, 11}, {2, 3, 12}, {4, 4, 14}, {2, 2, 11}, {3, 2, 12}, {4, 2, 14}, {2, 4, 12},
 };
 
 int ctm_cps1d_search(ctm_cps_ws *ws, const ctm_machine *mc, int at_cap) {
