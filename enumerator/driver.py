@@ -21,7 +21,7 @@ from .deciders import ALL_DECIDERS, CPS_MIN_CAP, DECIDERS, SEARCH_RELABEL
 # 1D to the (4,2) and (5,2) figures of README.md (Performance); 2D to (3,2) and (2,3) at caps
 # 100-2000 and (4,2) at cap 2000 (README.md). A 2D step costs more (grid rows lie 2 cap + 3 bytes
 # apart), and every 2D unit pays for its (2 cap + 3)^2 grid, which dominates small 2D builds.
-STEPS_PER_SECOND = 2e8       # 1D
+STEPS_PER_SECOND = 2.4e8     # 1D (run_1d: 2e8 before its cells in registers)
 STEPS_PER_SECOND_2D = 2.5e7  # with the 2D translated cycler's records (2D (4,2) cap 2000)
 NODES_PER_SECOND = 1.5e6     # branch points at m = 2; each tallies m HALT leaves, so cost grows with m
 UNIT_SECONDS = 8e-5          # per unit: Python, the executor, the merge
@@ -29,9 +29,11 @@ CELL_SECONDS = 8e-12         # per 2D unit and grid cell (the grid is mapped laz
 PROBE_CELL_SECONDS = 8e-11   # what a probe pays per grid cell to set up, before any walk
 # The CPS per branch point of the tree. Binary machines try cheap windows early and the costly
 # attempts only at the cap (ctm_cps1d_search): fitted to the quiet one-worker shards 4-7, 12 and
-# 13 of 1D (6,2) cap 1000 (shards/1d-n6-m2-t1000/build.log; the model was within 15% of each)
-# and, 25% above, to (5,2) cap 500. 3+ symbols try every attempt at step 128: 1D (3,3) cap 10000.
-CPS_SECONDS_PER_NODE = 0.5e-6
+# 13 of 1D (6,2) cap 1000 (shards/1d-n6-m2-t1000/build.log; the model was within 15% of each),
+# then scaled with the steps above by the 16% that the current core saves on all 65 units of
+# shard 7 (1,189 -> 994 CPU-s, same counts). 3+ symbols try every attempt at step 128: 1D (3,3)
+# cap 10000.
+CPS_SECONDS_PER_NODE = 0.3e-6
 CPS_SECONDS_PER_NODE_MULTI = 3.5e-6
 PILOT_UNITS = 48             # units a pilot estimate probes when probing all of them would cost
 DEFAULT_BUDGET_HOURS = 24.0

@@ -44,6 +44,10 @@ def reaches_undefined(text, steps):
     return False
 
 
+# The binary attempts at the cap, as enumerator/csrc/ctm_prove.c lists them (cps_binary_late)
+LATE_BINARY = [(3, 4, 13), (2, 1, 11), (2, 3, 12), (4, 4, 14), (2, 2, 11), (3, 2, 12), (4, 2, 14), (2, 4, 12)]
+
+
 def cps(text, **how):
     """The core's CPS on one partial machine in compact notation: the attempt that proved it, or 0.
     how: at_cap=True for the costlier attempts a build adds at the cap, or plan=[(n, k, log2)]."""
@@ -303,6 +307,8 @@ def test_binary_search_tries_plain_windows_early_and_history_at_the_cap():
             elif c:
                 late += 1
                 assert cps(mach, plan=[(w, 0, 16) for w in (1, 2, 3, 4)]) == 0  # it needs history
+            if not e and late <= 40:  # the cap stage's order is for speed: it proves what any one attempt proves
+                assert (c > 0) == any(cps(mach, plan=[a]) > 0 for a in LATE_BINARY)
             if e or c:
                 assert run(mach, 5_000).status != "undefined", mach
     assert early > 100 and late > 10
