@@ -30,9 +30,9 @@ PROBE_CELL_SECONDS = 8e-11   # what a probe pays per grid cell to set up, before
 # The CPS per branch point of the tree. Binary machines try cheap windows early and the costly
 # attempts only at the cap (ctm_cps1d_search): fitted to the quiet one-worker shards 4-7, 12 and
 # 13 of 1D (6,2) cap 1000 (shards/1d-n6-m2-t1000/build.log; the model was within 15% of each),
-# then scaled with the steps above by the 16% that the current core saves on all 65 units of
-# shard 7 (1,189 -> 994 CPU-s, same counts). 3+ symbols try every attempt at step 128: 1D (3,3)
-# cap 10000.
+# then scaled with the steps above by the 14-16% that the current core saves on shard 7 (its
+# first 30 units: 481 -> 412 CPU-s, same counts). 3+ symbols try every attempt at step 128: 1D
+# (3,3) cap 10000.
 CPS_SECONDS_PER_NODE = 0.3e-6
 CPS_SECONDS_PER_NODE_MULTI = 3.5e-6
 PILOT_UNITS = 48             # units a pilot estimate probes when probing all of them would cost
