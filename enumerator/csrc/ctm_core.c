@@ -186,27 +186,16 @@ static void set_touch(ctm_unit *u, const config *c) {
 }
 
 /* Head on fresh blank grid, having just moved in direction dir: does the
- * chain of blank-reading entries from `state` keep moving that way and close
- * into a cycle? Then every cell ahead is fresh and the head runs off forever. */
-static int escapes(const ctm_unit *u, int state, int dir) {
-    uint64_t seen = 0;
-    for (;;) {
-        if (seen & (1ull << state)) return 1;
-        seen |= 1ull << state;
-        int e = state * u->m;
-        if (!u->def[e] || u->mv[e] != dir) return 0;
-        state = u->nx[e];
-    }
-}
-
-/* The same for the 1D loop, from sb = state * m, on the entry words. */
-static int escapes_sb(const ctm_unit *u, uint32_t sb, uint32_t left) {
+ * chain of blank-reading entries from state sb / m keep moving that way and close
+ * into a cycle? Then every cell ahead is fresh and the head runs off forever.
+ * sb = state * m indexes the entry words (set_tr) at the blank symbol 0. */
+static int escapes(const ctm_unit *u, uint32_t sb, uint32_t dir) {
     uint64_t seen = 0;
     for (;;) {
         if (seen & (1ull << sb)) return 1;
         seen |= 1ull << sb;
         const uint32_t t = u->tr[sb];
-        if ((t & 3u) != 1u || (t >> 2 & 1u) != left) return 0;
+        if ((t & 3u) != 1u || (t >> 2 & 3u) != dir) return 0;
         sb = t >> 16;
     }
 }
@@ -534,6 +523,32 @@ static inline void set_move(ctm_unit *u, int e, int dir) {
     u->ey[e] = u->dy[dir];
 }
 
+/* A segment at step `stop`, short of the cap: the CPS due there (the early attempts at cps_at,
+ * the costlier ones at quiet_at), the cycler checks off from quiet_at, and the next stop.
+ * 1: proven, 0: run on to *stop, < 0: an error. */
+static int reach_stop(ctm_unit *u, int64_t step, int64_t cap, int64_t quiet_at, unsigned *dec, int *cps_due,
+                      int *cps_cap_due, int64_t *stop) {
+    if (*cps_due && step >= u->cps_at) {
+        int rc = try_cps(u, 0);
+        if (rc < 0) return rc;
+        *cps_due = 0;
+        if (rc > 0) return 1;
+    }
+    if (step >= quiet_at) {
+        *dec &= ~(CTM_DEC_CYCLE | CTM_DEC_SHIFT);
+        if (*cps_cap_due) {
+            int rc = try_cps(u, 1);
+            if (rc < 0) return rc;
+            *cps_cap_due = 0;
+            if (rc > 0) return 1;
+        }
+    }
+    *stop = cap;
+    if (*cps_due && u->cps_at > step && u->cps_at < *stop) *stop = u->cps_at;
+    if (quiet_at > step && quiet_at < *stop) *stop = quiet_at;
+    return 0;
+}
+
 /* The 1D step loop's state; cl, cc, cr: the cells left of, under and right of the head. */
 typedef struct {
     uint32_t sb, cl, cc, cr;  /* sb: state * m */
@@ -561,7 +576,7 @@ static int __attribute__((noinline)) run_1d(const uint32_t *restrict tr, uint8_t
     while (step < stop) {
         const uint32_t t = tr[sb + cc];
         if ((t & 3u) != 1u) { ev = RUN1_UNDEF; break; }
-        const uint32_t w = t >> 8 & 0xffu, left = t >> 2 & 1u;
+        const uint32_t w = t >> 8 & 0xffu, left = t >> 2 & 1u; /* 1D directions: 0 R, 1 L */
         tape[head] = (uint8_t)w;
         sb = t >> 16;
         step++;
@@ -583,10 +598,10 @@ static int __attribute__((noinline)) run_1d(const uint32_t *restrict tr, uint8_t
     return ev;
 }
 
-/* The entry word of the 1D loop, after def, wr, mv and nx of entry e changed. */
+/* The entry word of entry e (the 1D loop and escapes), after its def, wr, mv and nx changed. */
 static inline void set_tr(ctm_unit *u, int e) {
     const uint32_t d = (uint32_t)u->def[e] & 3u;
-    u->tr[e] = d == 1 ? 1u | (uint32_t)(u->mv[e] == 1) << 2 | (uint32_t)u->wr[e] << 8 | (uint32_t)(u->nx[e] * u->m) << 16 : d;
+    u->tr[e] = d == 1 ? 1u | ((uint32_t)u->mv[e] & 3u) << 2 | (uint32_t)u->wr[e] << 8 | (uint32_t)(u->nx[e] * u->m) << 16 : d;
 }
 
 #define DIM 1

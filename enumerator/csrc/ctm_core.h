@@ -140,8 +140,8 @@ typedef struct {
     uint8_t wr[CTM_MAX_ENTRIES];
     int8_t mv[CTM_MAX_ENTRIES];  /* direction index */
     uint8_t nx[CTM_MAX_ENTRIES];
-    uint32_t tr[CTM_MAX_ENTRIES]; /* 1D: an entry in one word, def | L << 2 | wr << 8 | nx * m << 16,
-                                     so the step loop loads one word per step (set_move, set_tr) */
+    uint32_t tr[CTM_MAX_ENTRIES]; /* an entry in one word, def | mv << 2 | wr << 8 | nx * m << 16
+                                     (set_tr), so the 1D loop loads one word per step */
     uint8_t sb_state[CTM_MAX_ENTRIES]; /* 1D: state * m -> state */
     ctm_count pow_opts[CTM_MAX_ENTRIES + 1];
     uint16_t path[CTM_MAX_ENTRIES];
