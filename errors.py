@@ -30,7 +30,12 @@ class TableError(CtmtabError, ValueError):
     """A table file is malformed, truncated, corrupt or inconsistent."""
 
 
-class BadMagicError(TableError):
+class NotATableError(TableError):
+    """The path names no table file: missing, empty, a folder or special file, or another kind
+    of file. verify reports it as unreadable (exit 2), not as a table that failed (exit 1)."""
+
+
+class BadMagicError(NotATableError):
     """The file does not start with the ctmtab magic bytes."""
 
 

@@ -35,7 +35,14 @@ def write_atomic(path, data: bytes, durable: bool = True) -> None:
         raise OutputError(f"cannot write {path}: it is {kind}; give a file name")
     target = os.path.realpath(path)  # through every symlink, to the file that gets the bytes
     folder = os.path.dirname(target)
-    fd, tmp = tempfile.mkstemp(prefix=os.path.basename(target) + ".", suffix=".tmp", dir=folder)
+    if not os.path.isdir(folder):
+        raise OutputError(f"cannot write {path}: its folder {folder} does not exist; create it, or give "
+                          "another path")
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=os.path.basename(target) + ".", suffix=".tmp", dir=folder)
+    except OSError as exc:  # it names the temporary file; the user gave path
+        exc.filename = path
+        raise
     try:
         if st is not None:
             mode = stat.S_IMODE(st.st_mode)  # replacing a file keeps its permissions

@@ -16,7 +16,7 @@ import numpy as np
 
 from ..enumerator.space import MAX_CAP, MAX_ENTRIES
 from ..enumerator.tally import FULL_RELABELLING_MAX
-from ..errors import InconsistentTableError, SizeLimitError, TableError
+from ..errors import InconsistentTableError, NotATableError, SizeLimitError, TableError
 from . import format as fmt
 from .arrays import U64, Hist, decode_counts, limbs_needed
 from .table import SHIPPED, Group, Table
@@ -31,17 +31,40 @@ def shipped() -> list[str]:
 
 
 def resolve(name_or_path) -> Path:
+    """The one file a name stands for: an existing path, else a shipped table by its exact name
+    (with or without the suffix). Never a prefix or a near miss: a name that is neither is refused,
+    with the close names of both kinds as suggestions, so a typo never loads another table."""
     path = Path(name_or_path)
     if path.exists() or path.is_symlink():  # a dangling link: stat names it
         return path
+    text = str(name_or_path)
     names = shipped()
-    matches = [n for n in names if n == str(name_or_path)] or [n for n in names if n.startswith(str(name_or_path))]
-    if len(matches) == 1:
-        return SHIPPED / (matches[0] + SUFFIX)
-    hint = f"shipped tables: {', '.join(names)}" if names else "no tables ship with this install"
-    if len(matches) > 1:
-        raise TableError(f"{name_or_path!r} names several shipped tables ({', '.join(matches)}); be more precise")
-    raise FileNotFoundError(f"no table file {str(name_or_path)!r}; give a path, or a name ({hint})")
+    stem = text.removesuffix(SUFFIX)
+    if stem in names and os.sep not in text and (os.altsep is None or os.altsep not in text):
+        return SHIPPED / (stem + SUFFIX)
+    raise NotATableError(f"no table file {text!r}{_did_you_mean(path, names)}")
+
+
+def _did_you_mean(path: Path, names: list[str]) -> str:
+    """'; did you mean ...' with the local files and shipped names closest to path, else the list."""
+    import difflib
+
+    near = []
+    if (path.parent / (path.name + SUFFIX)).exists():  # the suffix left out of a local file's name
+        near.append(str(path.parent / (path.name + SUFFIX)) if str(path.parent) != "." else path.name + SUFFIX)
+    try:
+        local = [p.name for p in path.parent.glob("*" + SUFFIX)][:1000] if path.parent.is_dir() else []
+    except OSError:
+        local = []
+    if not near:  # else the missing suffix is the likely slip: name just that
+        near += difflib.get_close_matches(path.name, local, n=2, cutoff=0.85)
+        stem = path.name.removesuffix(SUFFIX)
+        close = [n for n in names if n.startswith(stem)][:3] or difflib.get_close_matches(stem, names, n=2, cutoff=0.85)
+        near += [f"{n} (shipped)" for n in close]
+    if near:
+        return "; did you mean " + " or ".join(near) + "? Give the exact path or shipped name"
+    listed = f"shipped tables: {', '.join(names)}" if names else "no tables ship with this install"
+    return f"; give a path, or the exact name of a shipped table ({listed})"
 
 
 def load(name_or_path, *, max_body: int = fmt.MAX_BODY) -> Table:
@@ -54,9 +77,9 @@ _KINDS = [(stat.S_ISDIR, "a folder"), (stat.S_ISFIFO, "a FIFO (named pipe)"), (s
           (stat.S_ISBLK, "a block device"), (stat.S_ISSOCK, "a socket")]
 
 
-def _not_regular(path, mode: int) -> TableError:
+def _not_regular(path, mode: int) -> NotATableError:
     kind = next((name for test, name in _KINDS if test(mode)), "not a regular file")
-    return TableError(f"{path} is {kind}, not a table file; give the path of a .ctmt file")
+    return NotATableError(f"{path} is {kind}, not a table file; give the path of a .ctmt file")
 
 
 def read_file(path, max_body: int = fmt.MAX_BODY) -> bytes:
@@ -76,7 +99,7 @@ def read_file(path, max_body: int = fmt.MAX_BODY) -> bytes:
             raise SizeLimitError(f"{path}: {size} bytes is larger than any table this reader accepts "
                                  f"(max_body {max_body}); pass a larger max_body if you trust this file")
         if size == 0:  # also what /proc and /sys files report: never read them
-            raise TableError(f"{path} is empty (0 bytes), not a table file; fetch it again")
+            raise NotATableError(f"{path} is empty (0 bytes), not a table file; fetch it again")
         chunks, left = [], size + 1  # one byte past the size tells a file that grew while read
         while left > 0:
             chunk = os.read(fd, min(left, 1 << 24))
@@ -85,7 +108,7 @@ def read_file(path, max_body: int = fmt.MAX_BODY) -> bytes:
             chunks.append(chunk)
             left -= len(chunk)
     except OSError as exc:
-        raise TableError(f"{path}: cannot be read ({exc.strerror or exc}); give a table file") from None
+        raise NotATableError(f"{path}: cannot be read ({exc.strerror or exc}); give a table file") from None
     finally:
         os.close(fd)
     data = b"".join(chunks)

@@ -177,7 +177,7 @@ def test_shipped_tables_load_by_name_and_verify():
             "2d-n4-m2-t2000", "1d-n6-m2-t1000-upto18", "2d-n5-m2-t100-upto4"} <= set(names)
     for name in names:
         assert problems(load(name)) == [], name
-    t = load("1d-n4-m2")
+    t = load("1d-n4-m2-t107")
     assert t.distinct == exact_table(4, 2, 107).distinct()
     assert dict(t.items()) == {"".join(map(str, k)): c for g in exact_table(4, 2, 107).groups.values()
                                for k, c in g.items()}

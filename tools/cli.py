@@ -15,7 +15,7 @@ from pathlib import Path
 
 from .._version import __version__
 from ..enumerator.deciders import DECIDERS
-from ..errors import CtmtabError, RareKeyWarning
+from ..errors import CtmtabError, OutputError, RareKeyWarning
 
 DEFAULT_MIN_SEEN = 10  # the reader's default too (tables.table.DEFAULT_MIN_SEEN)
 
@@ -58,6 +58,16 @@ def _check_text(argv) -> None:
         except UnicodeEncodeError:
             raise CtmtabError(f"{what} is not valid UTF-8 text; table headers keep the command line "
                               "as text, so give a UTF-8 name or value") from None
+
+
+def _check_fields(a) -> None:
+    """--builder and --notes are shown as one line each by info: refuse line breaks and other
+    control characters, which would forge lines there."""
+    for flag in ("builder", "notes"):
+        text = getattr(a, flag, None)
+        bad = next((c for c in text or "" if not c.isprintable()), None)
+        if bad is not None:
+            raise CtmtabError(f"--{flag} holds the control character {bad!r}; give one line of plain text")
 
 
 def _space_args(p):
@@ -202,6 +212,12 @@ def _printable(text: str) -> str:
                     else f"\\U{ord(c):08x}") for c in text)
 
 
+def _line(text) -> str:
+    """A field from a file as one printable line: a line break in it is shown as \\n, so a file
+    cannot forge lines of a report."""
+    return _printable(str(text)).replace("\n", "\\n")
+
+
 def _emit(obj, as_json: bool, text: str) -> None:
     print(_json(obj, indent=2) if as_json else _printable(text))
 
@@ -320,6 +336,8 @@ def cmd_build(a) -> int:
         raise CtmtabError("--holdouts lists the undecided nodes of an exhaustive build; drop --sample")
     if a.holdouts is not None and Path(a.holdouts).is_dir():
         raise CtmtabError(f"cannot write holdouts to {a.holdouts}: it is a folder; give a file name")
+    if a.holdouts is not None and Path(a.holdouts).resolve() == Path(output).resolve():
+        raise OutputError(f"--holdouts {a.holdouts} is the table's own file {output}; give another file name")
     workers = a.workers if a.workers is not None else cores()
     # The spool sits beside the table; a device or pipe gets it in this folder, under the default name.
     special = Path(output).exists() and not Path(output).is_file()
@@ -404,10 +422,10 @@ def cmd_info(a) -> int:
     t = load(a.table)
     s = t.summary()
     if a.json:
-        _emit(s, True, "")
+        _emit({"file": t.source, **s}, True, "")
         return 0
     lines = [
-        f"{t.source}",
+        _line(t.source),
         f"  space      {s['label']} ({t.space.size:,} machines), cap {t.cap}, {s['mode']}"
         + (f", {s['sample']['size']:,} samples, seed {s['sample']['seed']}" if s.get("sample") else ""),
         f"  halting    {t.halting:,}  non-halting {t.non_halting:,}  undecided {t.undecided:,} "
@@ -417,13 +435,14 @@ def cmd_info(a) -> int:
         f"  CTM        {s['ctm_min']:.4f} to {s['ctm_max']:.4f} bits" + (" (the kept keys)" if t.cut else "") if t.total
         else "  CTM        none: no run halted",
         f"  longest    {s['stats'].get('longest_run', '?')} steps, {s['stats'].get('most_nonblank', '?')} non-blank cells",
-        f"  built      {s['build'].get('created', '?')}"
-        + (f" by {s['build']['by']}" if s["build"].get("by") else "") + f" in {s['build'].get('seconds', '?')} s",
-        f"  command    {s['build'].get('command', '')}",
-        f"  generator  {s['generator'].get('name', '?')} {s['generator'].get('version', '?')}, format {s['format'][0]}.{s['format'][1]}",
+        f"  built      {_line(s['build'].get('created', '?'))}"
+        + (f" by {_line(s['build']['by'])}" if s["build"].get("by") else "") + f" in {s['build'].get('seconds', '?')} s",
+        f"  command    {_line(s['build'].get('command', ''))}",
+        f"  generator  {_line(s['generator'].get('name', '?'))} {_line(s['generator'].get('version', '?'))}, "
+        f"format {s['format'][0]}.{s['format'][1]}",
     ]
     if s["notes"]:
-        lines.append(f"  notes      {s['notes']}")
+        lines.append(f"  notes      {_line(s['notes'])}")
     if t.cut is not None:
         c = t.cut
         lines.insert(4, f"  cut        keys up to size {c.max_size} kept; {_keys(c)} of {len(c.dropped)} longer shapes "
@@ -494,7 +513,7 @@ def cmd_lookup(a) -> int:
     for key in a.keys:
         shape = t._parse_key(key)[0]
         if t.dropped(shape):  # cut from the table: a bound, never a value
-            rows.append({"key": key, "dropped": True, "count": None, "probability": None, "ctm": None,
+            rows.append({"key": key, "table": t.source, "dropped": True, "count": None, "probability": None, "ctm": None,
                          "ctm_low": t.dropped_bound(shape), "ctm_high": math.inf})
             continue
         with warnings.catch_warnings(record=True) as caught:
@@ -503,7 +522,7 @@ def cmd_lookup(a) -> int:
             ctm = t.ctm(key, missing=a.missing)
             low, high = t.interval(key)
         rare += [key] if any(issubclass(w.category, RareKeyWarning) for w in caught) else []
-        row = {"key": key, "count": c, "probability": c / t.total, "ctm": ctm, "ctm_low": low, "ctm_high": high}
+        row = {"key": key, "table": t.source, "count": c, "probability": c / t.total, "ctm": ctm, "ctm_low": low, "ctm_high": high}
         if t.mode == "sampled":
             row["standard_error"] = t.standard_error(key)
             row["rare"] = key in rare
@@ -533,6 +552,7 @@ def cmd_lookup(a) -> int:
 def cmd_verify(a) -> int:
     """Every file, each reported: a table that fails is 1, a file that cannot be read 2; the
     exit code is the worst."""
+    from ..errors import NotATableError
     from ..tables import load, problems
 
     report, worst = [], 0
@@ -541,6 +561,8 @@ def cmd_verify(a) -> int:
         try:
             found = problems(load(name))
             code = 1 if found else 0
+        except NotATableError as exc:  # missing, empty, special or another kind of file: unreadable
+            found, code = [str(exc)], 2
         except CtmtabError as exc:
             found, code = [str(exc)], 1
         except OSError as exc:
@@ -558,11 +580,28 @@ def _keys(cut) -> str:
     return "keys (never collected: cut during the build)" if cut.keys is None else f"{cut.keys:,} keys"
 
 
+def _not_an_input(output, inputs, flag: str, verb: str) -> None:
+    """Refuse an output that is one of the command's input tables (by path, symlink, hard link or
+    shipped name): writing it would replace what is being read."""
+    from ..fsutil import same_file
+    from ..tables.load import resolve
+
+    for name in inputs:
+        try:
+            path = resolve(name)
+        except CtmtabError:
+            continue  # the load reports it
+        if same_file(output, path):
+            raise OutputError(f"{flag} {output} is the table being {verb} ({name}); writing it would destroy "
+                              "the table. Give another file name")
+
+
 def cmd_trim(a) -> int:
     from ..tables import load
 
-    t = load(a.table)
     out = a.output or f"{Path(a.table).name.removesuffix('.ctmt')}-upto{a.keep_size}.ctmt"
+    _not_an_input(out, [a.table], "-o", "trimmed")
+    t = load(a.table)
     cut = t.trimmed(a.keep_size)
     cut.save(out)
     c = cut.cut
@@ -575,6 +614,7 @@ def cmd_trim(a) -> int:
 def cmd_merge(a) -> int:
     from ..tables import load, merge
 
+    _not_an_input(a.output, a.tables, "-o", "merged")
     merge([load(p) for p in a.tables], command=_command(), builder=a.builder, notes=a.notes).save(a.output)
     return 0
 
@@ -584,11 +624,10 @@ def cmd_export(a) -> int:
 
     import io
 
-    from ..fsutil import same_file, write_atomic
+    from ..fsutil import write_atomic
 
-    if a.output and same_file(a.output, a.table):
-        raise CtmtabError(f"-o {a.output} is the table being exported; writing it would destroy the table. "
-                          "Give another file name")
+    if a.output:
+        _not_an_input(a.output, [a.table], "-o", "exported")
     t = load(a.table)
     out = io.StringIO() if a.output else sys.stdout
     if a.format == "csv":
@@ -621,6 +660,8 @@ def cmd_validate(a) -> int:
 
     if a.worst < 0:
         raise CtmtabError(f"--worst {a.worst} is negative; give 0 or more")
+    if a.plot:
+        _not_an_input(a.plot, [a.table] + ([a.values] if a.values else []), "--plot", "validated")
     est = resolve(a.estimator) if a.estimator else None  # before the load: bad input fails fast
     vals = values_from_csv(a.values) if a.values else None
     t = load(a.table)
@@ -710,6 +751,7 @@ def main(argv=None) -> int:
     try:
         if args.command in ("build", "merge"):  # the commands that store their command line
             _check_text(sys.argv[1:] if argv is None else argv)
+            _check_fields(args)
         code = COMMANDS[args.command](args)
         sys.stdout.flush()  # a full stdout fails here, inside the handlers below
         return code
