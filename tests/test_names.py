@@ -126,3 +126,7 @@ def test_info_shows_a_line_break_from_a_file_as_an_escape(tmp_path):
     out = cli("info", tmp_path / "forged.ctmt").stdout
     assert "forged" in out
     assert not any(line.lstrip().startswith(("halting    forged", "undecided 0")) for line in out.splitlines())
+
+
+def test_a_negative_min_seen_is_refused():
+    one_line(cli("lookup", "1d-n4-m4-t2000-sampled", "0123", "--min-seen", "-5"))

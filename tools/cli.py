@@ -507,6 +507,8 @@ def cmd_lookup(a) -> int:
 
     from ..tables import load
 
+    if a.min_seen < 0:
+        raise CtmtabError(f"--min-seen {a.min_seen} is negative; give 0 (no warnings) or more")
     t = load(a.table)
     t.min_seen = a.min_seen
     rows, rare = [], []
