@@ -33,7 +33,12 @@ cdef extern from "csrc/ctm_core.h" nogil:
         const uint16_t *prefix
         uint64_t probe_seed
         int64_t keep_size
+        int64_t settle_size
         ctm_map raw
+        ctm_map late
+        ctm_count late_halting, late_proven
+        uint64_t late_nodes[3]
+        uint64_t late_steps
         ctm_map cut
         ctm_count halting, non_halting, undecided
         ctm_count proven[5]
@@ -180,6 +185,11 @@ cdef dict _result(ctm_unit *u, int64_t cap):
         longest_run=int(u.longest_run),
         most_nonblank=int(u.most_nonblank),
         steps=int(u.steps),
+        late=_map_items(&u.late),
+        late_halting=_int(&u.late_halting),
+        late_proven=_int(&u.late_proven),
+        late_nodes=[int(u.late_nodes[k]) for k in range(3)],
+        late_steps=int(u.late_steps),
     )
 
 
@@ -200,7 +210,7 @@ def sample_unit(int dims, int n, int m, int64_t cap, unsigned deciders, uint64_t
 
 
 def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), int cut_depth=-1,
-             bint holdouts=False, int64_t cps_at=-1, int64_t keep_size=0):
+             bint holdouts=False, int64_t cps_at=-1, int64_t keep_size=0, int64_t settle_size=0):
     """Enumerate one work unit of the space (dims, n, m) under cap.
 
     prefix: the move-option indices to follow through the first len(prefix)
@@ -216,6 +226,7 @@ def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), 
     u.cut_depth = cut_depth
     u.keep_holdouts = holdouts
     u.keep_size = keep_size
+    u.settle_size = settle_size
     if cps_at >= 0:
         u.cps_at = cps_at
     if k:

@@ -14,7 +14,8 @@ from .native import core as _core
 from .space import Space, check_cap
 from .spool import Spool, kept
 from .tally import Partial, Tally, images_per_sample, relative_sample_errors, sample_sums, size_of
-from .units import Plan, default_depth, make_plan, unit_weight_ok
+from .bounds import bound_reached
+from .units import Plan, default_depth, make_plan, unit_settle_ok, unit_weight_ok
 from .deciders import ALL_DECIDERS, CPS_MIN_CAP, DECIDERS, SEARCH_RELABEL
 
 # Cost model of the estimate, single-core seconds, fitted to builds on this project's machine:
@@ -168,6 +169,7 @@ def build(
     holdouts: bool = False,
     relabel: bool = True,
     max_size: int | None = None,
+    settle_size: int | None = None,
 ) -> Tally:
     """Enumerate every machine of the space under cap; return the exact tally.
 
@@ -180,7 +182,11 @@ def build(
     every undecided node in tally.holdouts (enumerator/holdouts.py renders them). relabel=False
     turns off the first-use symbol order (same counts, for tests and benchmarks). max_size keeps
     the keys up to that size only, with an exact record of the rest (tables/cut.py), and never
-    holds the longer ones as keys, which bounds the memory of a big build's expansion."""
+    holds the longer ones as keys, which bounds the memory of a big build's expansion. settle_size
+    runs every node still undecided at the cap whose size (2D: both sides) is at most that on past
+    the cap until it halts, repeats or outgrows it (see check_settle): the counts stay the cap's,
+    and what it finds goes to the certificate, so every key up to that size gets its exact
+    unbounded-time count."""
     _prepare(space, cap)
     if budget_hours is not None and not (isinstance(budget_hours, (int, float)) and 0 < budget_hours < math.inf):
         raise SpaceError(f"the budget must be a positive number of CPU-hours, got {budget_hours!r}; "
@@ -195,6 +201,7 @@ def build(
         raise SpaceError(f"max_size must be a whole number >= 1, got {max_size!r}")
     if max_size is not None:
         max_size = min(max_size, cap + 1)  # no output is longer: a larger size keeps everything
+    settle_size = check_settle(space, cap, settle_size, max_size)
     t0 = time.perf_counter()
     # The default-depth plan is cheap and serves the estimate too; another depth (0 runs the
     # whole tree as its top) is planned only after the estimate has let the build through.
@@ -213,7 +220,7 @@ def build(
     if p is None:
         p = plan(space, cap, split_depth, deciders, relabel)
     chosen = p.select(shard)
-    store = _exhaustive_spool(spool, p, chosen, max_size) if spool else None
+    store = _exhaustive_spool(spool, p, chosen, max_size, settle_size) if spool else None
     results = store.finished() if store else {}
     if holdouts:  # parts spooled without their holdouts are run again
         results = {k: r for k, r in results.items() if "holdouts" in r or not r["undecided_nodes"]}
@@ -226,6 +233,8 @@ def build(
         nonlocal weight_done, done, steps
         if not unit_weight_ok(result, p.unit(index).weight):
             raise InvariantError(f"unit {p.unit(index).uid} does not add up to its weight (a bug)")
+        if settle_size and not unit_settle_ok(result):
+            raise InvariantError(f"unit {p.unit(index).uid}: the run-on does not add up to the undecided weight (a bug)")
         part.add(result)
         weight_done += p.unit(index).weight
         done += 1
@@ -239,13 +248,13 @@ def build(
     if 0 in chosen and 0 not in results:  # the plan computed the top already: never spooled
         top = p.top
         # the plan's top run kept no holdouts and every output: run it again for either
-        if (holdouts and top["undecided_nodes"]) or max_size is not None:
+        if (holdouts and top["undecided_nodes"]) or max_size is not None or settle_size:
             top = _core.run_unit(space.dims, space.states, space.symbols, cap, bits, (), p.depth or -1, holdouts,
-                                 -1, max_size or 0)
+                                 -1, max_size or 0, settle_size or 0)
             top.pop("cuts")
         accept(0, top)
-    tasks = [(space.dims, space.states, space.symbols, cap, bits, k, p.unit(k).prefix, holdouts, max_size or 0)
-             for k in chosen if k != 0 and k not in results]
+    tasks = [(space.dims, space.states, space.symbols, cap, bits, k, p.unit(k).prefix, holdouts, max_size or 0,
+              settle_size or 0) for k in chosen if k != 0 and k not in results]
     with kept(store):
         for index, result in executors.stream(tasks, workers, scheduler):
             if store:
@@ -255,7 +264,7 @@ def build(
         space, cap, part, deciders=tuple(deciders), units=p.count,
         covered=None if shard is None else chosen, weight=weight_total,
         plan_ident=p.ident, depth=p.depth, shard=shard, relabelled=bool(p.bits & SEARCH_RELABEL),
-        max_size=max_size,
+        max_size=max_size, settle=None if not settle_size else {"size": settle_size},
     )
     tally.seconds = time.perf_counter() - t0
     tally.resumed = resumed
@@ -264,7 +273,7 @@ def build(
     return tally
 
 
-def _exhaustive_spool(folder, p: Plan, chosen, max_size: int | None = None) -> Spool:
+def _exhaustive_spool(folder, p: Plan, chosen, max_size: int | None = None, settle_size: int | None = None) -> Spool:
     """The spool of an exhaustive build: units of this plan (and shard), sealed by their prefix.
     A build cut by size keeps only the weight of longer outputs, so its units are another build's."""
     wanted = set(chosen)
@@ -275,7 +284,36 @@ def _exhaustive_spool(folder, p: Plan, chosen, max_size: int | None = None) -> S
     ident = {"kind": "exhaustive", "plan": p.ident, "space": p.space.to_dict(), "cap": p.cap, "units": p.count}
     if max_size is not None:
         ident["keep_size"] = max_size
+    if settle_size:  # the run-on changes what a unit records
+        ident["settle_size"] = settle_size
     return Spool(folder, ident, expect)
+
+
+MAX_SETTLE_CONFIGS = 1 << 40  # a run-on's configurations, states x head cells x tapes; far past any use
+
+
+def check_settle(space: Space, cap: int, settle_size, max_size: int | None) -> int | None:
+    """The run-on's size K, checked: a whole number, at most the cap (a run-on stays on the cap's
+    grid) and the kept size (its halts are keys), with a configuration count (states x cells x
+    m^cells; 2D cells = K^2) that bounds every run-on's steps. None at a proven busy-beaver bound,
+    where no run halts past the cap."""
+    if settle_size is None:
+        return None
+    if isinstance(settle_size, bool) or not isinstance(settle_size, int) or settle_size < 1:
+        raise SpaceError(f"the settle size must be a whole number >= 1, got {settle_size!r}; e.g. --settle-size 12")
+    if settle_size > cap:
+        raise SpaceError(f"a settle size of {settle_size} is larger than the cap {cap}; give --settle-size {cap} "
+                         "or less (a run-on stays on the cap's tape)")
+    if max_size is not None and settle_size > max_size:
+        raise SpaceError(f"a settle size of {settle_size} is larger than the kept size {max_size}; the halts it "
+                         f"finds must be keys of the table, so give --settle-size {max_size} or less")
+    cells = settle_size if space.dims == 1 else settle_size * settle_size
+    configs = space.states * cells * space.symbols ** cells
+    if configs > MAX_SETTLE_CONFIGS:
+        raise TooLargeError(f"a settle size of {settle_size} in {space.label} allows {configs:.3g} configurations "
+                            "per run-on, so proving a repetition could take as many steps; use a smaller "
+                            "--settle-size")
+    return None if bound_reached(space, cap) is not None else settle_size
 
 
 SAMPLE_UNIT = 25_000  # samples per work unit: the result never depends on the worker count

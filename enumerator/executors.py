@@ -13,12 +13,13 @@ from .native import core as _core
 
 
 def run_task(task: tuple) -> tuple:
-    """One unit: (dims, n, m, cap, bits, index, prefix[, holdouts[, keep_size]]) -> (index, result).
-    Top level, so it pickles."""
+    """One unit: (dims, n, m, cap, bits, index, prefix[, holdouts[, keep_size[, settle_size]]]) ->
+    (index, result). Top level, so it pickles."""
     dims, n, m, cap, bits, index, prefix = task[:7]
     holdouts = len(task) > 7 and bool(task[7])
     keep_size = task[8] if len(task) > 8 and task[8] else 0
-    return index, _core.run_unit(dims, n, m, cap, bits, prefix, -1, holdouts, -1, keep_size)
+    settle_size = task[9] if len(task) > 9 and task[9] else 0
+    return index, _core.run_unit(dims, n, m, cap, bits, prefix, -1, holdouts, -1, keep_size, settle_size)
 
 
 def run_sample_task(task: tuple) -> tuple:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from ..errors import CoreMissingError
 
-API_VERSION = 8  # the compiled module must match this Python code
+API_VERSION = 9  # the compiled module must match this Python code
 
 _module = None
 

@@ -35,6 +35,13 @@ class Partial:
     cut: dict = field(default_factory=dict)  # keep_size: class byte + uint32 rows, cols -> raw weight
     undecided_by_size: dict = field(default_factory=dict)  # (rows, cols) at the cap -> weight
     holdouts: list = field(default_factory=list)  # per unit: packed undecided nodes (core records)
+    # the run-on past the cap (settle_size): halting outputs keyed as raw, the weight that halted,
+    # the weight proven (a repeated configuration or a closed table), tree nodes and steps
+    late: dict = field(default_factory=dict)
+    late_halting: int = 0
+    late_proven: int = 0
+    late_nodes: list = field(default_factory=list)  # halting leaves, proven, outgrown
+    late_steps: int = 0
 
     def add(self, unit: dict) -> None:
         _add_into(self.raw, unit["raw"])
@@ -48,6 +55,11 @@ class Partial:
         _add_into(self.cut, unit.get("cut", {}))
         if unit.get("holdouts"):
             self.holdouts.append(unit["holdouts"])
+        _add_into(self.late, unit.get("late", {}))
+        self.late_halting += unit.get("late_halting", 0)
+        self.late_proven += unit.get("late_proven", 0)
+        _add_lists(self.late_nodes, unit.get("late_nodes", []))
+        self.late_steps += unit.get("late_steps", 0)
         _add_lists(self.hist_steps, unit["hist_steps"])
         _add_lists(self.hist_len, unit["hist_len"])
         self.longest_run = max(self.longest_run, unit["longest_run"])
@@ -359,6 +371,8 @@ class Tally:
     relabelled: bool = False     # exhaustive, m >= 3: the search wrote symbols in first-use order
     max_size: int | None = None  # keys kept up to this size (longer side); None: every key
     dropped: dict = field(default_factory=dict)  # cut shapes -> (weight, keys, largest count)
+    settle: dict | None = None   # the run-on past the cap: size, halting, proven, nodes, steps
+    late_groups: dict = field(default_factory=dict, repr=False)  # shape -> {key: count halting past the cap}
 
     def __post_init__(self):
         if self.weight is None:
@@ -416,6 +430,10 @@ class Tally:
                 raise InvariantError("units cut by size reached an uncut build (a bug)")
             cut_weights(space, part.cut, dropped)
         extra.update(max_size=max_size, dropped=dropped)
+        if extra.get("settle") is not None:
+            extra["settle"] = dict(extra["settle"], halting=part.late_halting, proven=part.late_proven,
+                                   nodes=_add_lists([0, 0, 0], part.late_nodes), steps=part.late_steps)
+            extra["late_groups"] = expand_raw(space, part.late)
         tally = cls(
             space=space,
             cap=cap,
@@ -467,8 +485,12 @@ class Tally:
             raise InvariantError("a complete build does not cover the space size; this is a bug")
         if self.proofs is not None and sum(self.proofs.values()) != self.non_halting:
             raise InvariantError("the proofs by decider do not sum to the non-halting weight; this is a bug")
-        if self.undecided_by_size is not None and sum(self.undecided_by_size.values()) != self.undecided:
-            raise InvariantError("the undecided weight by size does not sum to the undecided weight; this is a bug")
+        settled = 0 if self.settle is None else self.settle["halting"] + self.settle["proven"]
+        if self.undecided_by_size is not None and sum(self.undecided_by_size.values()) + settled != self.undecided:
+            raise InvariantError("the undecided weight by size (and what the run-on settled) does not sum to the "
+                                 "undecided weight; this is a bug")
+        if self.settle is not None:
+            self._check_settle()
         if sum(self.steps_hist) != self.halting or sum(self.length_hist) != self.halting:
             raise InvariantError("a histogram does not sum to the halting weight; this is a bug")
         per_run = self.images if self.mode == "sampled" else self.blanks
@@ -488,6 +510,18 @@ class Tally:
             hist = self.length_hist[size] if size < len(self.length_hist) else 0
             if total != per_run * hist:
                 raise InvariantError(f"size {size}: counts disagree with the output-size histogram (a bug)")
+
+
+    def _check_settle(self) -> None:
+        """The run-on's own invariants: its halts expand to blanks x its halting weight, none is
+        larger than the settle size, and every node it left undecided outgrew that size."""
+        k = self.settle["size"]
+        if sum(sum(g.values()) for g in self.late_groups.values()) != self.blanks * self.settle["halting"]:
+            raise InvariantError("the halts past the cap do not expand to blanks x their weight (a bug)")
+        if any(size_of(s) > k for s in self.late_groups):
+            raise InvariantError(f"a halt past the cap is larger than the settle size {k} (a bug)")
+        if any(max(r, c) <= k for r, c in (self.undecided_by_size or {})):
+            raise InvariantError(f"an undecided node within the settle size {k} was left (a bug)")
 
 
 def combine_samples(tallies: list, where: list | None = None) -> Tally:
@@ -558,4 +592,23 @@ def _summed_proofs(tallies: list) -> dict:
         if nodes is not None:
             _add_into(nodes, t.proof_nodes)
     return dict(proofs=proofs, proof_nodes=nodes, undecided_by_size=dict(sorted(by_size.items())),
-                undecided_nodes=sum(t.undecided_nodes for t in tallies), step_bound=tallies[0].step_bound)
+                undecided_nodes=sum(t.undecided_nodes for t in tallies), step_bound=tallies[0].step_bound,
+                **_summed_settle(tallies))
+
+
+def _summed_settle(tallies: list) -> dict:
+    """The run-ons of shards add like their counts; shards settled to different sizes (or some
+    not at all) would leave keys exact in one part and open in another, so they are refused."""
+    sizes = {None if t.settle is None else t.settle["size"] for t in tallies}
+    if len(sizes) > 1:
+        raise MergeError("the parts were settled to different sizes (" + ", ".join(
+            "none" if s is None else str(s) for s in sorted(sizes, key=lambda s: s or 0))
+            + "); build every shard with one --settle-size")
+    if sizes == {None}:
+        return dict(settle=None, late_groups={})
+    settle = {"size": sizes.pop(), "halting": 0, "proven": 0, "nodes": [0, 0, 0], "steps": 0}
+    for t in tallies:
+        for name in ("halting", "proven", "steps"):
+            settle[name] += t.settle[name]
+        settle["nodes"] = [a + b for a, b in zip(settle["nodes"], t.settle["nodes"])]
+    return dict(settle=settle, late_groups=add_groups(t.late_groups for t in tallies))

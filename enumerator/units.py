@@ -88,6 +88,12 @@ def unit_weight_ok(result: dict, weight: int) -> bool:
     return result["halting"] + result["non_halting"] + result["undecided"] == weight
 
 
+def unit_settle_ok(result: dict) -> bool:
+    """The run-on splits the undecided weight: halted past the cap, proven, or still undecided."""
+    left = sum(result.get("undecided_by_size", {}).values())
+    return result.get("late_halting", 0) + result.get("late_proven", 0) + left == result["undecided"]
+
+
 # ---- spool records: exact, no pickle. Integers too wide for msgpack travel as decimal strings.
 
 def _enc(v: int):

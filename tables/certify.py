@@ -26,6 +26,7 @@ class Certificate:
     nodes: int                    # undecided tree nodes
     step_bound: dict | None       # {"steps": S, "source": ...} when the bound was reached
     proof_nodes: dict | None = None  # decider name -> tree nodes it closed (format 1.5; else None)
+    settle: dict | None = None    # the run-on past the cap (format 1.6): size, halting, proven, nodes, steps
     _reach: dict = field(default_factory=dict, repr=False)
 
     def reach(self, shape: tuple) -> int:
@@ -58,6 +59,11 @@ def header_field(tally) -> dict | None:
     if tally.step_bound is not None:
         steps, source = tally.step_bound
         out["step_bound"] = {"steps": steps, "source": source}
+    if tally.settle is not None:
+        st = tally.settle
+        out["settle"] = {"size": st["size"], "halting": str(st["halting"]), "proven": str(st["proven"]),
+                         "nodes": [int(x) for x in st["nodes"]], "steps": int(st["steps"]),
+                         "late_keys": [[list(s), len(g)] for s, g in sorted(tally.late_groups.items())]}
     return out
 
 
@@ -97,8 +103,14 @@ def parse(header: dict, non_halting: int, undecided: int, cap: int, dims: int = 
         by_size.append((r, c, w))
     if sum(parsed_proofs.values()) != non_halting:
         raise InconsistentTableError("the certificate's proofs do not sum to the non-halting total")
-    if sum(w for _, _, w in by_size) != undecided:
-        raise InconsistentTableError("the certificate's undecided weight by size does not sum to the undecided total")
+    settle = parse_settle(cert.get("settle"), cap, dims)
+    settled = 0 if settle is None else settle["halting"] + settle["proven"]
+    if sum(w for _, _, w in by_size) + settled != undecided:
+        raise InconsistentTableError("the certificate's undecided weight by size (and what its run-on settled) does "
+                                     "not sum to the undecided total")
+    if settle is not None and any(max(r, c) <= settle["size"] for r, c, _ in by_size):
+        raise InconsistentTableError(f"the certificate leaves undecided weight within its settle size {settle['size']}, "
+                                     "which the run-on decides")
     bound = cert.get("step_bound")
     if bound is not None:
         if not isinstance(bound, dict) or not isinstance(bound.get("source"), str):
@@ -115,7 +127,35 @@ def parse(header: dict, non_halting: int, undecided: int, cap: int, dims: int = 
         # a node stands for at least one machine, so a proof closes no more nodes than machines
         if any(n > parsed_proofs[k] or (n == 0) != (parsed_proofs[k] == 0) for k, n in proof_nodes.items()):
             raise InconsistentTableError("the certificate's proof_nodes contradict its proof weights")
-    return Certificate(parsed_proofs, by_size, nodes, bound, proof_nodes)
+    return Certificate(parsed_proofs, by_size, nodes, bound, proof_nodes, settle)
+
+
+def parse_settle(st, cap: int, dims: int) -> dict | None:
+    """The certificate's run-on record, by type and range: the settle size, the weight that halted
+    past the cap and the weight proven there, node and step counts, and the late keys' summary."""
+    if st is None:
+        return None
+    if not isinstance(st, dict) or not isinstance(st.get("nodes"), list) or len(st["nodes"]) != 3 \
+            or not isinstance(st.get("late_keys"), list):
+        raise InconsistentTableError("the certificate's settle record is malformed")
+    size = whole(st.get("size"), "settle size")
+    if not 1 <= size <= cap:
+        raise InconsistentTableError(f"the certificate's settle size {size} is outside 1..cap {cap}")
+    out = {"size": size, "halting": whole(st.get("halting"), "settled halting weight"),
+           "proven": whole(st.get("proven"), "settled proven weight"),
+           "nodes": [whole(x, "settle node count") for x in st["nodes"]],
+           "steps": whole(st.get("steps"), "settle step count"), "late_keys": []}
+    for entry in st["late_keys"]:
+        if not (isinstance(entry, list) and len(entry) == 2 and isinstance(entry[0], list) and len(entry[0]) == dims):
+            raise InconsistentTableError("the certificate's late key summary is malformed")
+        shape, n = [whole(x, "late key side") for x in entry[0]], whole(entry[1], "late key count")
+        if not (all(1 <= x <= size for x in shape) and n >= 1):
+            raise InconsistentTableError(f"the certificate's late keys of shape {shape} cannot arise within its "
+                                         f"settle size {size}")
+        out["late_keys"].append((tuple(shape), n))
+    if (out["halting"] == 0) != (not out["late_keys"]):
+        raise InconsistentTableError("the certificate's settled halting weight contradicts its late keys")
+    return out
 
 
 def bounds(c, u_key: int, u_total: int, total: int):

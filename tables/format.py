@@ -21,8 +21,9 @@ from ..errors import (BadMagicError, ChecksumError, InconsistentTableError, Size
                       TableError, TruncatedError, VersionError)
 
 MAGIC = b"\x8cCTMTAB\x1a"
-MAJOR, MINOR = 1, 5  # 1.1 sampled tables (header "sample", group "moments"); 1.2 sample "streams"; 1.3 "certificate";
-# 1.4 sparse histograms ("at"); 1.5 certificate "proof_nodes", the size cut ("cut")
+MAJOR, MINOR = 1, 6  # 1.1 sampled tables (header "sample", group "moments"); 1.2 sample "streams"; 1.3 "certificate";
+# 1.4 sparse histograms ("at"); 1.5 certificate "proof_nodes", the size cut ("cut"); 1.6 the run-on past
+# the cap (certificate "settle", body "late")
 PREAMBLE = struct.Struct("<8sHHIQ32s")  # magic, major, minor, header len, body len, header sha256
 MAX_HEADER = 1 << 20
 MAX_BODY = 1 << 31  # default cap on the decompressed body (and READ_PEAK x it must be free); load(max_body=...)

@@ -19,6 +19,7 @@ from ..enumerator.tally import FULL_RELABELLING_MAX
 from ..errors import InconsistentTableError, NotATableError, SizeLimitError, TableError
 from . import format as fmt
 from .arrays import U64, Hist, decode_counts, limbs_needed
+from . import certify
 from .table import SHIPPED, Group, Table
 
 SUFFIX = ".ctmt"
@@ -265,6 +266,10 @@ def body_bounds(header: dict) -> tuple[int, int]:
         width = _key_width(m, math.prod(shape))
         low += k * (width + 8 + (8 if moment_limbs else 0))
         high += k * (width + 8 * (count_limbs + moment_limbs)) + 256
+    for shape, k in _late_summary(header):  # halts past the cap: no moments, counts below the total's
+        width = _key_width(m, math.prod(shape))
+        low += k * (width + 8)
+        high += k * (width + 8 * count_limbs) + 256
     longest = _longest_size(header, [shape for shape, _ in header["keys"]["groups"]])
     hist_limbs = limbs_needed([halting])
     high += (header["cap"] + 1 + longest + 1) * 8 * hist_limbs + 256
@@ -321,17 +326,40 @@ def _rows_increasing(rows: np.ndarray) -> bool:
     return bool(differ[at, first].all() and (b[at, first] > a[at, first]).all())
 
 
+def _late_summary(header: dict) -> list:
+    """[(shape, keys)] of the halts past the cap the certificate declares (none without a run-on)."""
+    cert = header.get("certificate")
+    if not isinstance(cert, dict) or cert.get("settle") is None:
+        return []
+    settle = certify.parse_settle(cert["settle"], header["cap"], header["space"]["dims"])
+    return settle["late_keys"]
+
+
 def _build(header: dict, body: dict, where: str) -> Table:
-    m, dims = header["space"]["symbols"], header["space"]["dims"]
+    m = header["space"]["symbols"]
     summary = {tuple(s): k for s, k in header["keys"]["groups"]}
-    groups = {}
     raw_groups = body.get("groups")
     _need(isinstance(raw_groups, list), where, "the body has no key groups")
+    groups = _groups(raw_groups, summary, m, header.get("mode") == "sampled", where, "key group")
+    late_summary = dict(_late_summary(header))
+    raw_late = body.get("late", [])
+    _need(isinstance(raw_late, list) and len(raw_late) == len(late_summary), where,
+          "the body's halts past the cap contradict the certificate's late key summary")
+    late = _groups(raw_late, late_summary, m, False, where, "late key group")
+    longest = _longest_size(header, summary)
+    table = Table(header, groups, _hist(body.get("hist_steps"), header["cap"] + 1, where, "the step histogram"),
+                  _hist(body.get("hist_len"), longest + 1, where, "the length histogram"), source=where, late=late)
+    return _check_body(table, header, where)
+
+
+def _groups(raw_groups: list, summary: dict, m: int, sampled: bool, where: str, what: str) -> dict:
+    """Key groups of the body, each checked against the header's summary (shape -> keys)."""
+    groups = {}
     for spec in raw_groups:
-        _need(isinstance(spec, dict), where, "a key group is malformed")
+        _need(isinstance(spec, dict), where, f"a {what} is malformed")
         shape, n = spec.get("shape"), spec.get("n")
         _need(isinstance(shape, list) and tuple(shape) in summary, where,
-              f"a key group has a shape {shape!r} the header's key summary does not list")
+              f"a {what} has a shape {shape!r} the header's key summary does not list")
         shape = tuple(shape)
         _need(n == summary[shape], where, "the header's key summary contradicts the body")
         _need(shape not in groups, where, f"shape {shape} appears twice")
@@ -355,12 +383,13 @@ def _build(header: dict, body: dict, where: str) -> Table:
             g = Group(shape, None, rows, counts)
         _need(bool(np.all(counts > 0)) if counts.dtype != object else all(c > 0 for c in counts),
               where, f"shape {shape} holds a zero count")
-        if header.get("mode") == "sampled":
+        if sampled:
             g.moments = _counts(spec.get("moments"), n, where, f"the moments of shape {shape}")
         groups[shape] = g
-    longest = _longest_size(header, summary)
-    table = Table(header, groups, _hist(body.get("hist_steps"), header["cap"] + 1, where, "the step histogram"),
-                  _hist(body.get("hist_len"), longest + 1, where, "the length histogram"), source=where)
+    return groups
+
+
+def _check_body(table: Table, header: dict, where: str) -> Table:
     _need(header.get("keys") == table._key_summary(), where, "the header's key summary contradicts the body")
     if table.mode == "sampled":
         sample = header["sample"]

@@ -14,7 +14,7 @@ import numpy as np
 
 from .._version import __version__
 from ..enumerator.space import Space
-from ..enumerator.tally import relabelling, relative_sample_errors, sample_errors
+from ..enumerator.tally import relabelling, relative_sample_errors, sample_errors, size_of
 from ..errors import InconsistentTableError, MissingKeyError, RareKeyWarning, SpaceError, TableError
 from . import certify
 from . import cut as sizecut
@@ -51,6 +51,28 @@ class Group:
         return symbols_of(self.codes, m, math.prod(self.shape))
 
 
+def _group(shape: tuple, entries: dict, m: int, moments: dict | None = None) -> Group:
+    """One shape's keys (symbol bytes -> exact count), sorted by code, or by row where the codes
+    would not fit 64 bits; counts (and moments) as uint64 where they fit."""
+    keys = list(entries)
+    counts = np.asarray(list(entries.values()), dtype=object)
+    size = math.prod(shape)
+    rows = np.frombuffer(b"".join(keys), dtype=np.uint8).reshape(len(keys), size)
+    if fits_code64(m, size):
+        codes = codes_of(rows, m)
+        order = np.argsort(codes, kind="stable")
+        g = Group(shape, codes[order], None, counts[order])
+    else:
+        order = np.lexsort(rows.T[::-1])
+        g = Group(shape, None, rows[order], counts[order])
+    if moments is not None:
+        mom = np.asarray([moments[k] for k in keys], dtype=object)[order]
+        g.moments = mom.astype(np.uint64) if max(mom, default=0) < 1 << 64 else mom
+    if max(g.counts, default=0) < 1 << 64:
+        g.counts = g.counts.astype(np.uint64)
+    return g
+
+
 def _int_total(header: dict, name: str) -> int:
     value = header.get("totals", {}).get(name) if isinstance(header.get("totals"), dict) else None
     if not isinstance(value, str) or not value.isdigit():
@@ -73,7 +95,8 @@ def symmetries(space: Space, mode: str, relabelled: bool = False) -> list[str]:
 class Table:
     """One coding-theorem table. Build one with Table.from_tally, or load a file with load()."""
 
-    def __init__(self, header: dict, groups: dict, hist_steps: list, hist_len: list, source: str = "table"):
+    def __init__(self, header: dict, groups: dict, hist_steps: list, hist_len: list, source: str = "table",
+                 late: dict | None = None):
         self.header = header
         self.source = source
         try:
@@ -99,6 +122,14 @@ class Table:
         # the dropped weight stays in the total, so probabilities keep the true normalisation
         self.total = sum(exact_sum(g.counts) for g in groups.values()) + (self.cut.weight if self.cut else 0)
         self.certificate = certify.parse(header, self.non_halting, self.undecided, self.cap, self.space.dims)
+        # the run-on past the cap (certificate "settle"): shape -> Group of the runs that halted later
+        self.late = late or {}
+        settle = None if self.certificate is None else self.certificate.settle
+        late_total = sum(exact_sum(g.counts) for g in self.late.values())
+        if late_total != (0 if settle is None else self.blanks * settle["halting"]) or (
+                settle is not None and any(size_of(s) > settle["size"] for s in self.late)):
+            raise InconsistentTableError(f"{source}: the halts past the cap contradict the certificate's settle "
+                                         "record (their counts or sizes)")
 
     # ---- identity and totals
     @property
@@ -109,6 +140,45 @@ class Table:
     def undecided_runs(self) -> int:
         """Runs (machine, blank) that reached the cap unproven: the bound on any count's error."""
         return self.blanks * self.undecided
+
+    @property
+    def settle_size(self) -> int | None:
+        """Keys up to this size (2D: longer side) have exact unbounded-time counts: every run
+        undecided at the cap that fitted it was run on until it halted, repeated or outgrew it."""
+        cert = self.certificate
+        return None if cert is None or cert.settle is None else cert.settle["size"]
+
+    def _open_runs(self) -> tuple[int, int]:
+        """(runs halting past the cap, runs still undecided) after the run-on: the certified
+        bounds' normalisation lies between H + the first and H + both."""
+        cert = self.certificate
+        if cert is None or cert.settle is None:
+            return 0, self.undecided_runs
+        late, proven = cert.settle["halting"], cert.settle["proven"]
+        return self.blanks * late, self.blanks * (self.undecided - late - proven)
+
+    def _certified(self, shape, counts, rows=None):
+        """Certified CTM bounds (low, high) of keys of one shape with these counts at the cap;
+        rows (N x cells) add each key's halts past the cap where the table settled its size."""
+        late, left = self._open_runs()
+        counts = np.asarray(counts, dtype=np.float64)
+        if rows is not None:
+            counts = counts + self._late_counts(shape, rows)
+        return certify.bounds(counts, self.undecided_reach(shape), left, self.total + late)
+
+    def _late_counts(self, shape, rows) -> np.ndarray:
+        """Runs that produced each row (N x cells) after the cap, found by the run-on (float64)."""
+        g = self.late.get(tuple(shape))
+        rows = np.ascontiguousarray(rows, dtype=np.uint8).reshape(len(rows), -1)
+        if g is None:
+            return np.zeros(len(rows))
+        vals = np.asarray(g.counts, dtype=np.float64)
+        if g.codes is not None:
+            codes = codes_of(rows, self.space.symbols)
+            pos = np.minimum(np.searchsorted(g.codes, codes), len(g.codes) - 1)
+            return np.where(g.codes[pos] == codes, vals[pos], 0.0)
+        index = {r.tobytes(): i for i, r in enumerate(g.symbols)}  # few keys: no cache
+        return np.array([vals[index[r.tobytes()]] if r.tobytes() in index else 0.0 for r in rows])
 
     @property
     def streams(self) -> list:
@@ -130,25 +200,10 @@ class Table:
     # ---- building and saving
     @classmethod
     def from_tally(cls, tally, *, command: str = "", notes: str = "", builder: str | None = None) -> "Table":
-        groups = {}
-        for shape, entries in tally.groups.items():
-            keys = list(entries)
-            counts = np.asarray(list(entries.values()), dtype=object)
-            size = math.prod(shape)
-            rows = np.frombuffer(b"".join(keys), dtype=np.uint8).reshape(len(keys), size)
-            if fits_code64(tally.space.symbols, size):
-                codes = codes_of(rows, tally.space.symbols)
-                order = np.argsort(codes, kind="stable")
-                g = Group(shape, codes[order], None, counts[order])
-            else:
-                order = np.lexsort(rows.T[::-1])
-                g = Group(shape, None, rows[order], counts[order])
-            if tally.moments is not None:
-                mom = np.asarray([tally.moments[shape][k] for k in keys], dtype=object)[order]
-                g.moments = mom.astype(np.uint64) if max(mom, default=0) < 1 << 64 else mom
-            if max(g.counts, default=0) < 1 << 64:
-                g.counts = g.counts.astype(np.uint64)
-            groups[shape] = g
+        m = tally.space.symbols
+        groups = {shape: _group(shape, entries, m, None if tally.moments is None else tally.moments[shape])
+                  for shape, entries in tally.groups.items()}
+        late = {shape: _group(shape, entries, m) for shape, entries in tally.late_groups.items()}
         header = {
             "kind": "ctmtab-table",
             "space": tally.space.to_dict(),
@@ -203,7 +258,7 @@ class Table:
         cut = sizecut.of_tally(tally)
         if cut is not None:
             header["cut"] = cut.header_field()
-        table = cls(header, groups, list(tally.steps_hist), list(tally.length_hist))
+        table = cls(header, groups, list(tally.steps_hist), list(tally.length_hist), late=late)
         header["keys"] = table._key_summary()
         return table
 
@@ -225,7 +280,8 @@ class Table:
                 groups[shape] = g
         header = {k: v for k, v in self.header.items() if not k.startswith("_")}
         header["cut"] = cut.header_field()
-        table = Table(header, groups, self.hist_steps, self.hist_len, source=self.source)
+        # the halts past the cap stay whole (lookups of a cut shape refuse before they read them)
+        table = Table(header, groups, self.hist_steps, self.hist_len, source=self.source, late=self.late)
         header["keys"] = table._key_summary()
         table.min_seen = self.min_seen
         return table
@@ -272,32 +328,38 @@ class Table:
         if cert is None:
             return {}
         bound = cert.step_bound
+        m = self.space.symbols
         return dict(proofs=dict(cert.proofs), undecided_by_size={(r, c): w for r, c, w in cert.by_size},
                     proof_nodes=None if cert.proof_nodes is None else dict(cert.proof_nodes),
                     undecided_nodes=cert.nodes,
-                    step_bound=None if bound is None else (bound["steps"], bound["source"]))
+                    step_bound=None if bound is None else (bound["steps"], bound["source"]),
+                    settle=None if cert.settle is None else dict(cert.settle),
+                    late_groups={s: {row.tobytes(): int(c) for row, c in zip(g.rows(m), g.counts)}
+                                 for s, g in self.late.items()})
 
     def _key_summary(self) -> dict:
         return {"distinct": self.distinct, "groups": [[list(s), len(self.groups[s])] for s in self.shapes]}
 
     def body(self) -> dict:
-        out = []
-        for shape in self.shapes:
-            g = self.groups[shape]
-            if g.codes is not None:
-                keys = {"kind": "code64", "data": g.codes.astype("<u8").tobytes()}
-            else:
-                keys = {"kind": "symbols", "data": np.ascontiguousarray(g.symbols).tobytes()}
-            spec = {"shape": list(shape), "n": len(g), "keys": keys,
-                    "counts": encode_counts([int(c) for c in g.counts])}
-            if g.moments is not None:
-                spec["moments"] = encode_counts([int(c) for c in g.moments])
-            out.append(spec)
-        return {
-            "groups": out,
+        out = {
+            "groups": [self._group_spec(self.groups[shape]) for shape in self.shapes],
             "hist_steps": encode_hist(self.hist_steps),
             "hist_len": encode_hist(self.hist_len),
         }
+        if self.late:  # since 1.6: halts past the cap (certificate "settle"), keyed as the groups
+            out["late"] = [self._group_spec(self.late[shape]) for shape in sorted(self.late)]
+        return out
+
+    @staticmethod
+    def _group_spec(g: Group) -> dict:
+        if g.codes is not None:
+            keys = {"kind": "code64", "data": g.codes.astype("<u8").tobytes()}
+        else:
+            keys = {"kind": "symbols", "data": np.ascontiguousarray(g.symbols).tobytes()}
+        spec = {"shape": list(g.shape), "n": len(g), "keys": keys, "counts": encode_counts([int(c) for c in g.counts])}
+        if g.moments is not None:
+            spec["moments"] = encode_counts([int(c) for c in g.moments])
+        return spec
 
     def to_bytes(self) -> bytes:
         header = {k: v for k, v in self.header.items() if not k.startswith("_") and k != "body"}
@@ -418,7 +480,7 @@ class Table:
         if self.mode == "sampled":
             k = self.header["sample"]["images_per_sample"]
             return math.log2(self.total) - math.log2(most + 2 * math.sqrt(k * most) + 3 * k)
-        low, _ = certify.bounds(most, self.undecided_reach(shape), self.undecided_runs, self.total)
+        low, _ = self._certified(shape, most)
         return float(low)
 
     def _refuse_dropped(self, key, shape) -> None:
@@ -485,8 +547,8 @@ class Table:
             return float(low), float(high)
         shape, pos = self._find(key)
         c = 0 if pos < 0 else int(self.groups[shape].counts[pos])
-        low, high = certify.bounds(c, self.undecided_reach(shape), self.undecided_runs, self.total)
-        return float(low), float(high)
+        low, high = self._certified(shape, [c], self._parse_key(key)[1][None, :])
+        return float(low[0]), float(high[0])
 
     def undecided_reach(self, shape) -> int:
         """Undecided runs that could still produce a key of this shape: the bound on its count's
@@ -500,7 +562,7 @@ class Table:
         rows = []
         for shape in self.shapes:
             counts = np.asarray(self.groups[shape].counts, dtype=np.float64)
-            low, high = certify.bounds(counts, self.undecided_reach(shape), self.undecided_runs, self.total)
+            low, high = self._certified(shape, counts, self.groups[shape].rows(self.space.symbols))
             rows.append({"shape": "x".join(map(str, shape)), "keys": len(counts),
                          "widest": float(np.max(high - low)) if len(counts) else 0.0})
         return rows
@@ -606,12 +668,13 @@ class Table:
                 self._missing("(one of the keys)", "raise")
             ctm[absent] = self._missing(None, missing)
         out = {"count": counts, "probability": counts / self.total, "ctm": ctm}
-        if self.mode == "exhaustive":  # certified bounds: the reach is one number per shape
-            reach = np.zeros(n)
-            for shape, (idx, _) in batches.items():
-                reach[slice(None) if idx is None else idx] = float(self.undecided_reach(shape))
-            with np.errstate(invalid="ignore"):
-                out["ctm_low"], out["ctm_high"] = certify.bounds(counts, reach, self.undecided_runs, self.total)
+        if self.mode == "exhaustive":  # certified bounds, one shape at a time (its reach and halts past the cap)
+            low, high = np.full(n, np.nan), np.full(n, np.nan)
+            for shape, (idx, rows) in batches.items():
+                where = slice(None) if idx is None else idx
+                with np.errstate(invalid="ignore"):
+                    low[where], high[where] = self._certified(shape, counts[where], rows)
+            out["ctm_low"], out["ctm_high"] = low, high
         if self.cut is not None:
             out["dropped"] = cut
             if cut.any():
@@ -799,8 +862,7 @@ class Table:
             log_total = math.log2(self.total) if self.total else math.nan
             for shape in self.shapes:
                 g = self.groups[shape]
-                low, high = certify.bounds(np.asarray(g.counts, dtype=np.float64), self.undecided_reach(shape),
-                                           self.undecided_runs, self.total)
+                low, high = self._certified(shape, g.counts, g.rows(self.space.symbols))
                 for row, c, lo, hi in zip(g.rows(self.space.symbols), g.counts, low, high):
                     out.write(f"{self.key_text(shape, row)},{int(c)},{log_total - math.log2(int(c)):.6g},"
                               f"{lo:.6g},{hi:.6g}\n")

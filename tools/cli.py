@@ -110,6 +110,10 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--keep-size", type=int, default=None, metavar="K",
                    help="keep only keys whose size (2D: longer side) is at most K, with an exact record of "
                         "the weight dropped per size (see trim); default every key")
+    p.add_argument("--settle-size", type=int, default=None, metavar="K",
+                   help="run every node still undecided at the cap whose output fits K cells (2D: KxK) on past "
+                        "the cap until it halts, repeats or outgrows K, so every key up to size K gets tight "
+                        "certified bounds; the counts stay the cap's. Default: the --keep-size; 0: off")
     p.add_argument("--notes", default="", help="free text stored in the header")
     p.add_argument("--builder", default=None,
                    help="who built it, stored in the header; default $CTMTAB_BUILDER, else nothing")
@@ -320,6 +324,10 @@ def cmd_build(a) -> int:
         raise CtmtabError("--until needs a sampled build")
     if a.keep_size is not None and a.keep_size < 1:
         raise CtmtabError(f"--keep-size must be 1 or more, got {a.keep_size}")
+    if a.settle_size is not None and sampled:
+        raise CtmtabError("--settle-size runs on the undecided nodes of an exhaustive build; drop --sample")
+    if a.settle_size is not None and a.settle_size < 0:
+        raise CtmtabError(f"--settle-size must be 0 (off) or more, got {a.settle_size}")
     if a.keep_size is not None and base is not None:
         raise CtmtabError("--keep-size cannot cut an extended table (its dropped keys' samples could not be "
                           "added to later); extend the uncut table, then run ctmtab trim")
@@ -353,7 +361,8 @@ def cmd_build(a) -> int:
         else:
             tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, workers=workers,
                           scheduler=a.scheduler, shard=shard, spool=spool, budget_hours=a.budget_hours,
-                          on_progress=bar, holdouts=a.holdouts is not None, max_size=a.keep_size)
+                          on_progress=bar, holdouts=a.holdouts is not None, max_size=a.keep_size,
+                          settle_size=_settle_size(a, space, cap))
     finally:
         bar.close()
     if getattr(tally, "spool_damaged", 0):
@@ -406,6 +415,24 @@ def cmd_build(a) -> int:
               f"{left}{stop}{added}, {time.perf_counter() - t0:.2f} s{again} "
               f"-> {output}", file=sys.stderr)
     return 0
+
+
+def _settle_size(a, space, cap) -> int | None:
+    """--settle-size, or by default the kept size where a run-on of that size is affordable."""
+    from ..enumerator.driver import check_settle
+
+    if a.settle_size is not None:
+        return a.settle_size or None
+    if a.keep_size is None:
+        return None
+    size = min(a.keep_size, cap)
+    try:
+        return check_settle(space, cap, size, a.keep_size)
+    except CtmtabError:
+        if not a.quiet:
+            print(f"ctmtab build: note: no run-on past the cap, since one of size {size} could take too many "
+                  "steps; give a smaller --settle-size for tight bounds on the small keys", file=sys.stderr)
+        return None
 
 
 def _percent(fraction: float) -> str:
@@ -491,6 +518,11 @@ def _certificate_lines(t) -> list:
                    f"S = {bound['steps']:,} ({bound['source']}): intervals are points")
     else:
         out.append(f"  undecided  {cert.nodes:,} tree nodes remain (list them with build --holdouts)")
+    if cert.settle is not None:
+        st = cert.settle
+        out.append(f"  settled    keys up to size {st['size']} are certified for unbounded time: every node "
+                   f"undecided there was run on past the cap ({st['steps']:,} steps): {st['halting']:,} machines "
+                   f"halted later, {st['proven']:,} repeat forever, the rest outgrew size {st['size']}")
     proofs = ", ".join(f"{name} {w:,}" for name, w in cert.proofs.items() if w)
     out.append(f"  proofs     {proofs or 'none'}")
     if cert.proof_nodes is not None:
@@ -528,6 +560,8 @@ def cmd_lookup(a) -> int:
         if t.mode == "sampled":
             row["standard_error"] = t.standard_error(key)
             row["rare"] = key in rare
+        elif t.settle_size is not None:  # its interval bounds the unbounded-time value with every run settled
+            row["settled"] = max(shape) <= t.settle_size
         rows.append(row)
     if a.json:
         _emit(rows, True, "")
@@ -544,7 +578,8 @@ def cmd_lookup(a) -> int:
                 continue
             print(f"{r['key']:<20} {r['count']:>22,} {r['probability']:>12.6g}"
                   + (f" {r['standard_error']:>10.3g}" if sampled else "")
-                  + f" {r['ctm']:>10.4f}  [{r['ctm_low']:.4f}, {r['ctm_high']:.4f}]")
+                  + f" {r['ctm']:>10.4f}  [{r['ctm_low']:.4f}, {r['ctm_high']:.4f}]"
+                  + ("  settled" if r.get("settled") else ""))
     for key in rare:
         print(f"ctmtab lookup: warning: {key} was seen in {t.seen(key):.3g} samples, fewer than "
               f"--min-seen {a.min_seen}; its estimate is rough", file=sys.stderr)

@@ -44,6 +44,11 @@ int ctm_unit_init(ctm_unit *u) {
     memset(&u->raw, 0, sizeof u->raw);
     memset(&u->undec, 0, sizeof u->undec);
     memset(&u->cut, 0, sizeof u->cut);
+    memset(&u->late, 0, sizeof u->late);
+    u->late_halting = u->late_proven = 0;
+    memset(u->late_nodes, 0, sizeof u->late_nodes);
+    u->late_steps = 0;
+    u->past_cap = 0;
     memset(u->save_buf, 0, sizeof u->save_buf);
     memset(u->save_cap, 0, sizeof u->save_cap);
     memset(u->proven, 0, sizeof u->proven);
@@ -54,6 +59,10 @@ int ctm_unit_init(ctm_unit *u) {
     if ((u->deciders & CTM_SEARCH_RELABEL) && u->m > 64) return CTM_EINVAL; /* usym fits 6 bits */
     if (u->dims == 2 && u->cap > CTM_MAX_CAP_2D) return CTM_EINVAL;
     if (u->prefix_len < 0 || u->prefix_len > u->n * u->m) return CTM_EINVAL;
+    /* a run-on box stays inside the grid (the cap's), and its halts inside the kept sizes */
+    if (u->settle_size < 0 || u->settle_size > u->cap
+        || (u->settle_size > 0 && u->keep_size > 0 && u->settle_size > u->keep_size))
+        return CTM_EINVAL;
     u->nent = u->n * u->m;
     u->used = 1;
     u->usym = 0;
@@ -145,6 +154,7 @@ void ctm_unit_free(ctm_unit *u) {
     if (u->raw.hashes) ctm_map_free(&u->raw);
     if (u->undec.hashes) ctm_map_free(&u->undec);
     if (u->cut.hashes) ctm_map_free(&u->cut);
+    if (u->late.hashes) ctm_map_free(&u->late);
     free(u->holdouts);
     u->holdouts = NULL;
     ctm_cps_ws_free(u->cps_ws);
@@ -305,7 +315,7 @@ static void tally_halt(ctm_unit *u, const config *c, ctm_count total, int64_t no
 static int halt_leaves(ctm_unit *u, const config *c) {
     size_t len, at;
     int64_t nonblank;
-    u->halting_nodes++;
+    if (!u->past_cap) u->halting_nodes++;
     ctm_count w = c->mult * u->pow_opts[u->nent - u->ndef - 1];
     const int relabel = (u->deciders & CTM_SEARCH_RELABEL) != 0;
     const int flag = u->sym | (relabel ? u->usym << 2 : 0);
@@ -313,7 +323,12 @@ static int halt_leaves(ctm_unit *u, const config *c) {
     if (rc) return rc;
     const int writes = relabel && u->usym + 1 < u->m ? u->usym + 1 : u->m;
     const uint32_t size[2] = {(uint32_t)(c->yhi - c->ylo + 1), (uint32_t)(c->xhi - c->xlo + 1)};
-    if (u->keep_size > 0 && (int64_t)(size[0] > size[1] ? size[0] : size[1]) > u->keep_size) {
+    /* past the cap (a run-on): the halts go to their own map; counts and histograms stay the cap's */
+    ctm_map *to = &u->raw;
+    if (u->past_cap) {
+        if (!u->late.hashes && ctm_map_init(&u->late)) return CTM_ENOMEM;
+        to = &u->late;
+    } else if (u->keep_size > 0 && (int64_t)(size[0] > size[1] ? size[0] : size[1]) > u->keep_size) {
         /* past the size kept: only the weight, by class and size (the images share both sides) */
         uint8_t key[9];
         key[0] = (uint8_t)u->sym;
@@ -327,14 +342,19 @@ static int halt_leaves(ctm_unit *u, const config *c) {
     }
     for (int s = 0; s < writes; s++) {
         u->scratch[at] = (uint8_t)s;
-        rc = ctm_map_add(&u->raw, u->scratch, (uint32_t)len, w);
+        rc = ctm_map_add(to, u->scratch, (uint32_t)len, w);
         if (rc) return rc;
     }
     if (writes < u->m) { /* the new symbol usym + 1, for the m - 1 - usym unused ones */
         u->scratch[0] = (uint8_t)(u->sym | (u->usym + 1) << 2);
         u->scratch[at] = (uint8_t)(u->usym + 1);
-        rc = ctm_map_add(&u->raw, u->scratch, (uint32_t)len, w * (ctm_count)(u->m - 1 - u->usym));
+        rc = ctm_map_add(to, u->scratch, (uint32_t)len, w * (ctm_count)(u->m - 1 - u->usym));
         if (rc) return rc;
+    }
+    if (u->past_cap) {
+        u->late_halting += w * (ctm_count)u->m * u->factor[u->sym];
+        u->late_nodes[0]++;
+        return CTM_OK;
     }
     tally_halt(u, c, w * (ctm_count)u->m * u->factor[u->sym], nonblank + 1);
     return CTM_OK;
@@ -472,7 +492,6 @@ static int try_cps_row(ctm_unit *u) {
 static int give_up(ctm_unit *u, const config *box, int64_t step, ctm_count weight) {
     uint32_t size[2] = {(uint32_t)(box->yhi - box->ylo + 1), (uint32_t)(box->xhi - box->xlo + 1)};
     uint8_t key[8];
-    u->undecided_nodes++;
     if (!u->undec.hashes && ctm_map_init(&u->undec)) return CTM_ENOMEM;
     memcpy(key, size, sizeof key); /* little-endian hosts only, as the rest of the core */
     int rc = ctm_map_add(&u->undec, key, sizeof key, weight);

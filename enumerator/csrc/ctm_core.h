@@ -7,7 +7,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define CTM_API_VERSION 8
+#define CTM_API_VERSION 9
 
 #define CTM_OK 0
 #define CTM_ENOMEM (-1)    /* an allocation failed */
@@ -105,6 +105,9 @@ typedef struct {
     uint64_t probe_seed; /* != 0: one random root-to-leaf walk per call (Knuth estimate) */
     int64_t keep_size;   /* > 0: a halting output longer (2D: on its longer side) than this adds
                             only its weight to `cut`, never its cells to `raw` */
+    int64_t settle_size; /* > 0: run on every node undecided at the cap whose box (2D: both sides)
+                            is at most this, past the cap, until it halts, repeats a configuration
+                            or outgrows it (the run-on; at most keep_size when both are set) */
 
     /* outputs: weights count machines on blank 0, mirror images included */
     ctm_map raw;         /* key = flag byte (class | symbols in use << 2) + output symbols */
@@ -112,7 +115,12 @@ typedef struct {
     ctm_count halting, non_halting, undecided;
     ctm_count proven[CTM_DEC_COUNT]; /* non-halting weight by the proof that gave it */
     uint64_t proven_nodes[CTM_DEC_COUNT]; /* tree nodes each proof closed */
-    ctm_map undec;       /* undecided weight by size at the cap: key uint32 rows, uint32 cols */
+    ctm_map undec;       /* undecided weight by size at the cap: key uint32 rows, uint32 cols;
+                            with settle_size, a node run on is recorded where it outgrew it */
+    ctm_map late;        /* settle_size: halting outputs found past the cap, keyed as raw */
+    ctm_count late_halting, late_proven; /* run-on weight that halted / repeated or closed */
+    uint64_t late_nodes[3]; /* run-on tree nodes: halting leaves, proven, outgrown */
+    uint64_t late_steps; /* steps simulated past the cap */
     int keep_holdouts;   /* != 0: list every undecided node in holdouts */
     uint8_t *holdouts;   /* records of CTM_HOLDOUT_BYTES(nent) bytes */
     size_t n_holdouts, holdouts_cap;
@@ -132,6 +140,7 @@ typedef struct {
 
     /* private state */
     int nent, used, ndef;
+    int past_cap;                /* inside a run-on */
     int usym;                    /* CTM_SEARCH_RELABEL: non-blank symbols written so far (1..usym) */
     int pow_overflow;            /* opts^nent passes 128 bits: sampling only */
     int sym;                     /* symmetry class of the path: 0 none yet, 1, 2 (2D) */
