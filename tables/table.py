@@ -835,6 +835,7 @@ class Table:
             return None
         return {"exact": self.exact, "step_bound": cert.step_bound, "undecided_nodes": cert.nodes,
                 "proofs": dict(cert.proofs), "proof_nodes": cert.proof_nodes,
+                "settle": None if cert.settle is None else {k: v for k, v in cert.settle.items() if k != "late_keys"},
                 "widest_interval_by_shape": self.interval_widths()}
 
     def _sample_summary(self) -> dict:
