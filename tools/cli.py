@@ -301,7 +301,13 @@ def cmd_build(a) -> int:
     from .progress import Bar
 
     sampled = a.sample is not None or bool(a.until) or a.extend is not None
+    seed_given = a.seed is not None
     base = _extend_base(a) if a.extend else None
+    if base is not None and not seed_given and a.seed >= 1 << 63:
+        seeds = {s for s, _ in base.streams}
+        free = next(k for k in range(len(seeds) + 1) if k not in seeds)
+        raise CtmtabError(f"{a.extend} holds samples of seed 2^63 - 1, the largest, so no seed follows its "
+                          f"seeds; give an unused lower one, e.g. --seed {free}")
     prior = None if base is None else base.to_tally()  # converted once: the target and the sum use it
     for name, value in SPACE_DEFAULTS.items():
         if getattr(a, name) is None:
@@ -332,6 +338,11 @@ def cmd_build(a) -> int:
         raise CtmtabError(f"cannot write {output}: its folder does not exist")
     if Path(output).is_dir():  # refused now, not after the build
         raise CtmtabError(f"cannot write {output}: it is a folder; give a file name")
+    if a.scheduler is not None and not a.scheduler.strip():
+        raise CtmtabError("--scheduler is empty; give the Dask scheduler's address, e.g. tcp://host:8786, "
+                          "or leave it out to use local workers")
+    if a.workers is not None and a.workers < 1:
+        raise CtmtabError(f"--workers must be 1 or more, got {a.workers}")
     if a.holdouts is not None and sampled:
         raise CtmtabError("--holdouts lists the undecided nodes of an exhaustive build; drop --sample")
     if a.holdouts is not None and Path(a.holdouts).is_dir():
@@ -349,7 +360,7 @@ def cmd_build(a) -> int:
             from ..enumerator import sample
             tally = sample(space, cap, a.sample, seed=seed, deciders=deciders, workers=workers,
                            scheduler=a.scheduler, until=_until(a.until), prior=prior, spool=spool,
-                           on_progress=bar)
+                           on_progress=bar, budget_hours=a.budget_hours)
         else:
             tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, workers=workers,
                           scheduler=a.scheduler, shard=shard, spool=spool, budget_hours=a.budget_hours,
@@ -385,8 +396,14 @@ def cmd_build(a) -> int:
         if Path(spool).is_dir():
             exc.hint = f"the finished units are kept in {spool}; fix this and run the same command again"
         raise
-    from ..enumerator.spool import Spool
-    Spool.discard(spool)
+    unused, others = tally.spool_clean() if getattr(tally, "spool_clean", None) else (0, [])
+    if unused or others:  # even with -q: a folder left behind is worth a line
+        what = [f"{unused} finished unit(s) this build did not use"] if unused else []
+        if others:
+            what.append(f"{len(others)} file(s) it did not write ({', '.join(map(repr, others[:3]))}"
+                        + (", ..." if len(others) > 3 else "") + ")")
+        print(f"ctmtab build: note: {_printable(spool)} was kept: it holds {' and '.join(what)}; remove it "
+              "when no build needs them", file=sys.stderr)
     if not a.quiet:
         part = f" shard {shard[0]}/{shard[1]}," if shard else ""
         again = f", {tally.resumed} units resumed from {spool}" if tally.resumed else ""
