@@ -102,6 +102,18 @@ def _readings(row: str, m: int) -> str:
     return f"write its cells apart with dots, e.g. {split} for the cells {cells}"
 
 
+def data_array(x, m: int | None, what: str = "the data") -> np.ndarray:
+    """Data as an array, not yet checked: key text parsed, anything else through numpy, ragged
+    rows refused in one line."""
+    if isinstance(x, str):
+        return parse(x, m, what)
+    try:
+        return np.asarray(x)
+    except (ValueError, TypeError):
+        raise TableError(f"{what} has rows of unequal length or mixed types; give an array of integer "
+                         "symbols") from None
+
+
 def as_symbols(arr: np.ndarray, m: int, what: str, where: str = "", fix: str = "fix the data") -> np.ndarray:
     """arr as uint8 symbols 0..m-1, or one error naming the problem: only integer (or bool) data
     are symbols. Floats are refused even when whole: 0.9, NaN or 1e20 would otherwise become some

@@ -554,7 +554,8 @@ class Table:
 
     def lookup(self, keys, missing: str = "nan") -> dict:
         """Vectorised lookups. keys: a list of keys, or an N x L (1D) / N x R x C (2D)
-        numpy array of one shape. Returns arrays: count (float64), probability, ctm."""
+        numpy array of one shape; zero keys give empty arrays, one key alone (a string) is
+        refused. Returns arrays: count (float64), probability, ctm."""
         if missing not in MISSING_POLICIES:
             self._missing(None, missing)  # the one error for an unknown policy
         self.require_halting()

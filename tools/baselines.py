@@ -20,8 +20,7 @@ CODECS = {
 
 def _bytes(x) -> bytes:
     """One byte per symbol, row-major. Text is key text (tables/keys.py), dotted over 10 symbols."""
-    x = keys.parse(x, None, "the data") if isinstance(x, str) else np.asarray(x)
-    return keys.as_symbols(x, 256, "the data").reshape(-1).tobytes()
+    return keys.as_symbols(keys.data_array(x, None), 256, "the data").reshape(-1).tobytes()
 
 
 def compressed_bits(x, codec: str = "zlib") -> float:

@@ -648,7 +648,7 @@ def cmd_validate(a) -> int:
     print(f"{'size':>6} {'keys':>7} {'Spearman':>9} {'Kendall':>9}")
     for s, r in rep.by_size.items():
         if s in rep.undefined:
-            print(f"{s:>6} {r['keys']:>7} {'undefined':>9} {'undefined':>9}  ({rep.undefined[s]} at this size)")
+            print(f"{s:>6} {r['keys']:>7} {'undefined':>9} ({rep.undefined[s]} at this size)")
         else:
             print(f"{s:>6} {r['keys']:>7} {r['spearman']:>+9.3f} {r['kendall']:>+9.3f}")
     print("worst disagreements (exact CTM vs the fitted estimate):")
