@@ -12,6 +12,10 @@ import numpy as np
 
 from ..errors import TableError
 
+class OutsideAlphabetError(TableError):
+    """Key text whose cell is too long to be a symbol of the alphabet."""
+
+
 SHOWN = 40  # characters of a key quoted in an error: keys run to thousands of cells
 
 # what a dtype holds, for a one-line refusal
@@ -77,7 +81,7 @@ def _row(name: str, row: str, m: int | None, widest: int, several: bool) -> np.n
                              "each symbol as plain digits, without leading zeros, signs or spaces")
         if len(p) > widest:
             top = f"0..{m - 1}" if m else "0..255"
-            raise TableError(f"{name} holds symbols outside {top} (the symbol {shown(p)}); fix it")
+            raise OutsideAlphabetError(f"{name} holds symbols outside {top} (the symbol {shown(p)}); fix it")
     return np.array([int(p) for p in parts], dtype=np.int64)
 
 

@@ -130,6 +130,8 @@ def test_validate_reads_values_in_the_one_spelling(built, tmp_path):
     assert validate(t, values={"3.": 1.0, "10.": 2.0}).scored == 2
     with pytest.raises(CtmtabError, match="twice"):
         validate(t, values={"3": 1.0, "3.": 2.0})
+    # keys of other alphabets or dimensions are not this table's: left unscored, as keys it lacks
+    assert validate(t, values={"3.": 1.0, "13.": 2.0, "99999.": 3.0, "1.2/3.4": 4.0}).scored == 1
     values.write_text("key,value\n10,1.5\n")
     assert "ambiguous" in one_line(ctm("validate", path, "--values", values))
     r = ctm("validate", path, "--estimator", "zlib", "--sizes", "1-2", "--json")  # dotted keys reach a codec

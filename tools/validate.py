@@ -132,6 +132,8 @@ def canonical_values(table, values: dict) -> dict:
     for text, value in values.items():
         try:
             cells = keys.parse(str(text), m, "the values' key")
+        except keys.OutsideAlphabetError:
+            continue
         except CtmtabError as exc:
             raise CtmtabError(f"{exc} (keys are written as export writes them)") from None
         if dims == 2 and cells.ndim == 1:
