@@ -158,7 +158,7 @@ def _parser() -> argparse.ArgumentParser:
     src.add_argument("--values", metavar="FILE.csv", help="key,value rows")
     p.add_argument("--sizes", help="lengths (1D) or RxC shapes (2D): 5-11 or 3x3,4x4; default all")
     p.add_argument("--worst", type=int, default=10, help="disagreements to list; default 10")
-    p.add_argument("--plot", metavar="FILE.png", help="scatter and per-size correlation")
+    p.add_argument("--plot", metavar="FILE.png", help="scatter and per-size correlation (.png, .pdf or .svg)")
     p.add_argument("--json", action="store_true")
 
     p = sub.add_parser("plot", help="PNG figures of a table: CTM by rank, halting times, mass by size")
@@ -529,8 +529,9 @@ def cmd_lookup(a) -> int:
     t = load(a.table)
     t.min_seen = a.min_seen
     rows, rare = [], []
-    for key in a.keys:
-        shape = t._parse_key(key)[0]
+    for typed in a.keys:
+        shape, cells = t.parse_key(typed)
+        key = t.key_text(shape, cells)  # the one spelling, as export writes it
         if t.dropped(shape):  # cut from the table: a bound, never a value
             rows.append({"key": key, "table": t.source, "dropped": True, "count": None, "probability": None, "ctm": None,
                          "ctm_low": t.dropped_bound(shape), "ctm_high": math.inf})
@@ -681,6 +682,8 @@ def cmd_validate(a) -> int:
         raise CtmtabError(f"--worst {a.worst} is negative; give 0 or more")
     if a.plot:
         _not_an_input(a.plot, [a.table] + ([a.values] if a.values else []), "--plot", "validated")
+        from .plots import figure_format
+        figure_format(a.plot)  # before any work: a figure it cannot write fails fast
     est = resolve(a.estimator) if a.estimator else None  # before the load: bad input fails fast
     vals = values_from_csv(a.values) if a.values else None
     t = load(a.table)
@@ -695,11 +698,18 @@ def cmd_validate(a) -> int:
         _emit(rep.to_dict(), True, "")
         return 0
     print(f"{rep.scored:,} of {rep.keys:,} keys scored ({rep.coverage:.1%})")
-    print(f"Spearman {rep.spearman:+.4f}   Kendall {rep.kendall:+.4f}   "
-          f"mean absolute error after a linear fit {rep.mae_linear:.3f} bits")
+    if "all" in rep.undefined:  # NaN in words: no rank correlation exists here
+        print(f"Spearman and Kendall undefined ({rep.undefined['all']})   "
+              f"mean absolute error after a linear fit {rep.mae_linear:.3f} bits")
+    else:
+        print(f"Spearman {rep.spearman:+.4f}   Kendall {rep.kendall:+.4f}   "
+              f"mean absolute error after a linear fit {rep.mae_linear:.3f} bits")
     print(f"{'size':>6} {'keys':>7} {'Spearman':>9} {'Kendall':>9}")
     for s, r in rep.by_size.items():
-        print(f"{s:>6} {r['keys']:>7} {r['spearman']:>+9.3f} {r['kendall']:>+9.3f}")
+        if s in rep.undefined:
+            print(f"{s:>6} {r['keys']:>7} {'undefined':>9} ({rep.undefined[s]} at this size)")
+        else:
+            print(f"{s:>6} {r['keys']:>7} {r['spearman']:>+9.3f} {r['kendall']:>+9.3f}")
     print("worst disagreements (exact CTM vs the fitted estimate):")
     for w in rep.worst:
         print(f"  {w['key']:>16}  exact {w['exact']:8.3f}  fitted {w['fitted']:8.3f}")
