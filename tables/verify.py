@@ -1,15 +1,19 @@
 """Everything a collaborator can check in a table beyond its checksums."""
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 from ..enumerator.tally import blank_perms, dihedral_images
+from ..errors import CoreMissingError, CtmtabError
 from .table import Table
 
 
-def problems(table: Table) -> list[str]:
-    """Every invariant the table breaks, as one line each; empty when it is sound."""
-    out = []
+def problems(table: Table, notes: list | None = None) -> list[str]:
+    """Every invariant the table breaks, as one line each; empty when it is sound. notes, when
+    given, receives a line for each check that could not run here (no compiled core)."""
+    out = shard_weight_problems(table, [] if notes is None else notes)
     t = table
     covered = t.header.get("units", {}).get("covered") == "all"
     per_run = t.blanks
@@ -43,6 +47,49 @@ def problems(table: Table) -> list[str]:
         if size >= len(t.hist_len) or total != per_run * t.hist_len[size]:
             out.append(f"size {size}: the counts disagree with the output-size histogram")
     return out
+
+
+def shard_weight_problems(t: Table, notes: list) -> list[str]:
+    """A shard's weight, rebuilt: the plan (the top of the tree, cut at the header's depth) gives
+    every unit's weight, and the shard's covered units must weigh what its totals add up to. Only
+    the compiled core can rebuild a plan; the loader has already tied the totals to units.weight
+    and, for a file covering every unit, to the space size."""
+    units = t.header.get("units", {})
+    covered = units.get("covered", "all")
+    if t.mode != "exhaustive" or covered == "all" or len(covered) == units.get("count"):
+        return []
+    from ..enumerator.units import default_depth
+
+    depth = units.get("depth", 0)
+    if not 1 <= depth <= default_depth(t.space) + 1:  # a deeper top can cost as much as a build
+        notes.append(f"the weight of the shard's units was not recomputed (split depth {depth}: rebuilding "
+                     "its plan costs too much here); rebuild the shard to check it")
+        return []
+    deciders = tuple(t.header.get("deciders", []))
+    relabel = "symbol-relabelling" in t.header.get("symmetries", [])
+    try:
+        p = _plan(t.space, t.cap, depth, deciders, relabel)
+    except CoreMissingError:
+        notes.append("the weight of the shard's units was not recomputed (no compiled core here); "
+                     "verify it where ctmtab can build")
+        return []
+    except CtmtabError as exc:
+        return [f"the shard's plan cannot be rebuilt ({exc})"]
+    if p.ident != units.get("plan") or p.count != units.get("count"):
+        return [f"the plan {units.get('plan')!r} of {units.get('count')} units is not the plan rebuilt from "
+                f"the space, cap, deciders and depth ({p.ident!r}, {p.count} units)"]
+    weight = sum(p.unit(k).weight for k in covered)
+    if weight != int(units.get("weight", -1)):
+        return [f"the shard's units weigh {weight} machines, not the {units.get('weight')} its header and "
+                "totals claim"]
+    return []
+
+
+@functools.lru_cache(maxsize=4)  # the shards of one build share their plan
+def _plan(space, cap: int, depth: int, deciders: tuple, relabel: bool):
+    from ..enumerator.driver import plan
+
+    return plan(space, cap, depth, deciders, relabel)
 
 
 def _moments(table: Table, shape: tuple) -> list[str]:

@@ -383,6 +383,7 @@ def cmd_build(a) -> int:
             added = (f"; the table now holds {table.header['sample']['size']:,} samples, {table.distinct:,} outputs, "
                      f"undecided {_percent(table.undecided / table.header['sample']['size'])}")
         left = ("exact (every run left at the cap proven by the step bound)" if tally.step_bound
+                else "exact (every run decided, no step bound used)" if not tally.undecided and not sampled
                 else f"undecided {_percent(tally.undecided / tally.weight)}")
         print(f"{space.label} cap {cap}:{part} {tally.weight:,} {what}, {tally.distinct():,} outputs, "
               f"{left}{stop}{added}, {time.perf_counter() - t0:.2f} s{again} "
@@ -470,6 +471,9 @@ def _certificate_lines(t) -> list:
         bound = cert.step_bound
         out.append(f"  exact      every run left at the cap is proven non-halting by the step bound "
                    f"S = {bound['steps']:,} ({bound['source']}): intervals are points")
+    elif t.exact:
+        out.append("  exact      every run halted or was proven non-halting by the proofs below, no step "
+                   "bound used: intervals are points")
     else:
         out.append(f"  undecided  {cert.nodes:,} tree nodes remain (list them with build --holdouts)")
     proofs = ", ".join(f"{name} {w:,}" for name, w in cert.proofs.items() if w)
@@ -512,7 +516,9 @@ def cmd_lookup(a) -> int:
         _emit(rows, True, "")
     else:
         sampled = t.mode == "sampled"
-        kind = "95% interval (sampled)" if sampled else ("exact (step bound)" if t.exact else "certified interval")
+        kind = "95% interval (sampled)" if sampled else {"step-bound": "exact (step bound)",
+                                                          "proofs": "exact (every run decided)"}.get(
+            t.exact_by, "certified interval")
         print(f"{'key':<20} {'count':>22} {'probability':>12}" + (f" {'std error':>10}" if sampled else "")
               + f" {'CTM bits':>10}  {kind}")
         for r in rows:
@@ -537,18 +543,20 @@ def cmd_verify(a) -> int:
 
     report, worst = [], 0
     for name in a.tables:
-        code = 0
+        code, notes = 0, []
         try:
-            found = problems(load(name))
+            found = problems(load(name), notes)
             code = 1 if found else 0
         except CtmtabError as exc:
             found, code = [str(exc)], 1
         except OSError as exc:
             found, code = [f"{exc.strerror}: {exc.filename}" if exc.strerror and exc.filename else str(exc)], 2
         worst = max(worst, code)
-        report.append({"table": name, "ok": not found, "problems": found})
+        report.append({"table": name, "ok": not found, "problems": found, "not_checked": notes})
         if not a.json:
             print(_printable(f"{name}: ok" if not found else f"{name}: FAILED\n" + "\n".join(f"  {p}" for p in found)))
+            for note in notes:
+                print(_printable(f"  not checked: {note}"))
     if a.json:
         _emit(report, True, "")
     return worst
