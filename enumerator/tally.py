@@ -8,7 +8,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..errors import InvariantError, MergeError
+from ..errors import InvariantError, MergeError, TooLargeError
 from .bounds import bound_reached
 from .deciders import DECIDERS, STEP_BOUND
 from .space import Space
@@ -519,6 +519,8 @@ def combine_samples(tallies: list, where: list | None = None) -> Tally:
                 raise MergeError(f"{name} and {also} both hold samples of seed {seed}, which would count the "
                                  "same machines twice; draw the extra samples under a new --seed")
             owner[seed] = name
+    names = [name if where.count(name) == 1 else f"{name} (part {i + 1})" for i, name in enumerate(where)]
+    refuse_overlap(first.space, [(name, seed, size) for t, name in zip(tallies, names) for seed, size in t.streams])
     streams = sorted(s for t in tallies for s in t.streams)
     out = Tally(
         **summed(tallies), moments=add_groups(t.moments for t in tallies), deciders=tuple(first.deciders),
@@ -528,6 +530,24 @@ def combine_samples(tallies: list, where: list | None = None) -> Tally:
     )
     out.check()
     return out
+
+
+def refuse_overlap(space: Space, streams, fix: str = "draw the extra samples under another --seed") -> None:
+    """MergeError when two work units of these (label, seed, size) streams draw from one stretch
+    of the generator: distinct seeds alone do not keep streams apart (enumerator/streams.py)."""
+    from .driver import SAMPLE_UNIT
+    from .streams import first_overlap
+
+    try:
+        found = first_overlap(streams, space.entries, SAMPLE_UNIT)
+    except TooLargeError as exc:
+        raise MergeError(f"{', '.join(dict.fromkeys(label for label, _, _ in streams))}: {exc}") from None
+    if found is not None:
+        (i, sa, ua), (j, sb, ub) = found
+        a, b = streams[i][0], streams[j][0]
+        raise MergeError(f"{a} (seed {sa}, unit {ua}) and {'itself' if a == b else b} (seed {sb}, unit {ub}) draw "
+                         "overlapping stretches of the sampling generator, so they would count the same machines "
+                         f"twice; {fix}")
 
 
 def add_groups(sources) -> dict:

@@ -6,14 +6,15 @@ import functools
 import numpy as np
 
 from ..enumerator.tally import blank_perms, dihedral_images
-from ..errors import CoreMissingError, CtmtabError
+from ..errors import CoreMissingError, CtmtabError, TooLargeError
 from .table import Table
 
 
 def problems(table: Table, notes: list | None = None) -> list[str]:
     """Every invariant the table breaks, as one line each; empty when it is sound. notes, when
-    given, receives a line for each check that could not run here (no compiled core)."""
-    out = shard_weight_problems(table, [] if notes is None else notes)
+    given, receives a line for each check that could not run here (no compiled core, too large)."""
+    notes = [] if notes is None else notes
+    out = shard_weight_problems(table, notes)
     t = table
     covered = t.header.get("units", {}).get("covered") == "all"
     per_run = t.blanks
@@ -34,6 +35,8 @@ def problems(table: Table, notes: list | None = None) -> list[str]:
         out.append("the output-size histogram does not sum to the halting total")
     if len(t.hist_steps) > t.cap + 1:
         out.append(f"the step histogram reaches past the cap {t.cap}")
+    if t.mode == "sampled":
+        out += _streams(t, notes)
     for shape in t.shapes:
         out += [f"shape {shape}: {p}" for p in _closure(t, shape)]
         if t.mode == "sampled":
@@ -83,6 +86,23 @@ def shard_weight_problems(t: Table, notes: list) -> list[str]:
         return [f"the shard's units weigh {weight} machines, not the {units.get('weight')} its header and "
                 "totals claim"]
     return []
+
+
+def _streams(t: Table, notes: list) -> list[str]:
+    """The table's own streams must draw from disjoint stretches of the generator."""
+    from ..enumerator.driver import SAMPLE_UNIT
+    from ..enumerator.streams import first_overlap
+
+    try:
+        found = first_overlap([(None, seed, size) for seed, size in t.streams], t.space.entries, SAMPLE_UNIT)
+    except TooLargeError as exc:
+        notes.append(f"the streams were not checked for overlap: {exc}")
+        return []
+    if found is None:
+        return []
+    (_, sa, ua), (_, sb, ub) = found
+    return [f"unit {ua} of seed {sa} and unit {ub} of seed {sb} draw overlapping stretches of the sampling "
+            "generator: the table counts those machines twice"]
 
 
 @functools.lru_cache(maxsize=4)  # the shards of one build share their plan

@@ -198,3 +198,14 @@ def test_exact_says_what_made_it_exact():
     assert "exact (step bound)" in cli("lookup", "1d-n4-m2-t107", "0110").stdout
     info = cli("info", "2d-n2-m2-t2000").stdout
     assert "no step bound used" in info and "step bound S" not in info
+
+
+def test_without_the_core_verify_says_what_it_did_not_check(files):
+    from test_without_core import BLOCK
+    forged = forge(files, "s03", lambda h: drop_undecided(h, True), "nocore")
+    code = BLOCK + "from ctmtab.tools.cli import main; sys.exit(main(sys.argv[1:]))"
+    r = subprocess.run([sys.executable, "-c", code, "verify", forged], capture_output=True, text=True)
+    assert r.returncode == 0 and "not checked: the weight of the shard's units was not recomputed" in r.stdout
+    r = subprocess.run([sys.executable, "-c", code, "merge", "-o", files["dir"] / "nc.ctmt", forged,
+                        files["s13"], files["s23"]], capture_output=True, text=True)
+    one_line(r, 2, "not the space size 7529536")  # 40^4 machines, OEIS A141475

@@ -268,6 +268,12 @@ def _extend_base(a):
     elif a.seed in seeds:
         raise CtmtabError(f"{a.extend} already holds samples of seed {a.seed}; choose a new --seed "
                           f"(e.g. {max(seeds) + 1}) or leave it out")
+    # refused before any work: the new stream's first 10^8 samples when no --sample bounds it
+    # (an error or time target); what lies past them is checked when the samples are added
+    new = min(a.sample, 10**8) if a.sample is not None and a.sample > 0 else 10**8
+    from ..enumerator.tally import refuse_overlap
+    refuse_overlap(base.space, [(str(a.extend), seed, n) for seed, n in base.streams]
+                   + [("the new samples", a.seed, new)], "choose another --seed")
     a.dims, a.states, a.symbols, a.max_steps = has["dims"], has["states"], has["symbols"], has["max_steps"]
     if a.deciders == "all":
         a.deciders = ",".join(base.header.get("deciders", [])) or "none"
