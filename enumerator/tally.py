@@ -545,9 +545,12 @@ def refuse_overlap(space: Space, streams, fix: str = "draw the extra samples und
     if found is not None:
         (i, sa, ua), (j, sb, ub) = found
         a, b = streams[i][0], streams[j][0]
-        raise MergeError(f"{a} (seed {sa}, unit {ua}) and {'itself' if a == b else b} (seed {sb}, unit {ub}) draw "
-                         "overlapping stretches of the sampling generator, so they would count the same machines "
-                         f"twice; {fix}")
+        if a == b:  # one table's own streams: no choice of seed mends it
+            raise MergeError(f"{a}: unit {ua} of seed {sa} and unit {ub} of seed {sb} draw overlapping stretches "
+                             "of the sampling generator, so it counts the same machines twice; the file is corrupt "
+                             "or was edited, rebuild it")
+        raise MergeError(f"{a} (seed {sa}, unit {ua}) and {b} (seed {sb}, unit {ub}) draw overlapping stretches of "
+                         f"the sampling generator, so they would count the same machines twice; {fix}")
 
 
 def add_groups(sources) -> dict:

@@ -131,6 +131,9 @@ def test_the_issue_example_is_refused_and_really_overlaps(tmp_path):
     assert any("unit 5 of seed 1 and unit 0 of seed" in p for p in problems(load(forged)))
     r = cli("verify", forged)
     assert r.returncode == 1 and "overlapping stretches" in r.stdout
+    r = cli("build", "--extend", forged, "--seed", 5, "--sample", 1000, "-o", tmp_path / "y.ctmt", "-q")
+    assert r.returncode == 2 and f"{forged}: unit 5 of seed 1 and unit 0 of seed {SHIFTED}" in r.stderr, r.stderr
+    assert "rebuild it" in r.stderr and len(r.stderr.splitlines()) == 1
 
 
 def test_a_seed_starting_inside_another_units_draws_is_refused():
