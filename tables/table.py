@@ -99,7 +99,11 @@ class Table:
         self.cut = sizecut.parse(header, self.space.dims, self.space.symbols, self.cap, groups)
         # the dropped weight stays in the total, so probabilities keep the true normalisation
         self.total = sum(exact_sum(g.counts) for g in groups.values()) + (self.cut.weight if self.cut else 0)
-        self.certificate = certify.parse(header, self.non_halting, self.undecided, self.cap, self.space.dims)
+        try:
+            self.certificate = certify.parse(header, self.non_halting, self.undecided, self.cap, self.space.dims,
+                                            self.space, self.mode)
+        except InconsistentTableError as exc:
+            raise InconsistentTableError(f"{source}: {exc}; the file is corrupt or was edited") from None
 
     # ---- identity and totals
     @property
@@ -495,6 +499,16 @@ class Table:
         """An exhaustive table with nothing undecided: every count is the unbounded-runtime count."""
         return self.mode == "exhaustive" and self.undecided == 0
 
+    @property
+    def exact_by(self) -> str | None:
+        """What made the table exact: "step-bound" (the cap reaches a proven S(n, m), which proved
+        the runs left at the cap) or "proofs" (every run halted or a decider proved it never
+        halts, no bound used); None when it is not exact."""
+        if not self.exact:
+            return None
+        bound = self.certificate.step_bound if self.certificate is not None else None
+        return "step-bound" if bound is not None else "proofs"
+
     def standard_error(self, key) -> float:
         """Sampled tables: the standard error of the probability estimate (delta method, see
         enumerator.tally.sample_errors). Exhaustive tables are exact: 0."""
@@ -771,7 +785,7 @@ class Table:
         cert = self.certificate
         if cert is None or self.mode != "exhaustive":
             return None
-        return {"exact": self.exact, "step_bound": cert.step_bound, "undecided_nodes": cert.nodes,
+        return {"exact": self.exact, "exact_by": self.exact_by, "step_bound": cert.step_bound, "undecided_nodes": cert.nodes,
                 "proofs": dict(cert.proofs), "proof_nodes": cert.proof_nodes,
                 "widest_interval_by_shape": self.interval_widths()}
 

@@ -284,6 +284,12 @@ def _extend_base(a):
     elif a.seed in seeds:
         raise CtmtabError(f"{a.extend} already holds samples of seed {a.seed}; choose a new --seed "
                           f"(e.g. {max(seeds) + 1}) or leave it out")
+    # refused before any work: the new stream's first 10^8 samples when no --sample bounds it
+    # (an error or time target); what lies past them is checked when the samples are added
+    new = min(a.sample, 10**8) if a.sample is not None and a.sample > 0 else 10**8
+    from ..enumerator.tally import refuse_overlap
+    refuse_overlap(base.space, [(str(a.extend), seed, n) for seed, n in base.streams]
+                   + [("the new samples", a.seed, new)], "choose another --seed")
     a.dims, a.states, a.symbols, a.max_steps = has["dims"], has["states"], has["symbols"], has["max_steps"]
     if a.deciders == "all":
         a.deciders = ",".join(base.header.get("deciders", [])) or "none"
@@ -418,6 +424,7 @@ def cmd_build(a) -> int:
             added = (f"; the table now holds {table.header['sample']['size']:,} samples, {table.distinct:,} outputs, "
                      f"undecided {_percent(table.undecided / table.header['sample']['size'])}")
         left = ("exact (every run left at the cap proven by the step bound)" if tally.step_bound
+                else "exact (every run decided, no step bound used)" if not tally.undecided and not sampled
                 else f"undecided {_percent(tally.undecided / tally.weight)}")
         print(f"{space.label} cap {cap}:{part} {tally.weight:,} {what}, {tally.distinct():,} outputs, "
               f"{left}{stop}{added}, {time.perf_counter() - t0:.2f} s{again} "
@@ -506,6 +513,9 @@ def _certificate_lines(t) -> list:
         bound = cert.step_bound
         out.append(f"  exact      every run left at the cap is proven non-halting by the step bound "
                    f"S = {bound['steps']:,} ({bound['source']}): intervals are points")
+    elif t.exact:
+        out.append("  exact      every run halted or was proven non-halting by the proofs below, no step "
+                   "bound used: intervals are points")
     else:
         out.append(f"  undecided  {cert.nodes:,} tree nodes remain (list them with build --holdouts)")
     proofs = ", ".join(f"{name} {w:,}" for name, w in cert.proofs.items() if w)
@@ -551,7 +561,9 @@ def cmd_lookup(a) -> int:
         _emit(rows, True, "")
     else:
         sampled = t.mode == "sampled"
-        kind = "95% interval (sampled)" if sampled else ("exact (step bound)" if t.exact else "certified interval")
+        kind = "95% interval (sampled)" if sampled else {"step-bound": "exact (step bound)",
+                                                          "proofs": "exact (every run decided)"}.get(
+            t.exact_by, "certified interval")
         print(f"{'key':<20} {'count':>22} {'probability':>12}" + (f" {'std error':>10}" if sampled else "")
               + f" {'CTM bits':>10}  {kind}")
         for r in rows:
@@ -577,9 +589,9 @@ def cmd_verify(a) -> int:
 
     report, worst = [], 0
     for name in a.tables:
-        code = 0
+        code, notes = 0, []
         try:
-            found = problems(load(name))
+            found = problems(load(name), notes)
             code = 1 if found else 0
         except NotATableError as exc:  # missing, empty, special or another kind of file: unreadable
             found, code = [str(exc)], 2
@@ -588,9 +600,11 @@ def cmd_verify(a) -> int:
         except OSError as exc:
             found, code = [f"{exc.strerror}: {exc.filename}" if exc.strerror and exc.filename else str(exc)], 2
         worst = max(worst, code)
-        report.append({"table": name, "ok": not found, "problems": found})
+        report.append({"table": name, "ok": not found, "problems": found, "not_checked": notes})
         if not a.json:
             print(_printable(f"{name}: ok" if not found else f"{name}: FAILED\n" + "\n".join(f"  {p}" for p in found)))
+            for note in notes:
+                print(_printable(f"  not checked: {note}"))
     if a.json:
         _emit(report, True, "")
     return worst
