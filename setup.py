@@ -23,7 +23,7 @@ core = Extension(
 )
 
 setup(
-    # One import namespace, ctmtab, over the top-level folders (DESIGN.md section 8).
+    # One import namespace, ctmtab, over the top-level folders (docs/DESIGN.md section 8).
     package_dir={
         "ctmtab": ".",
         "ctmtab.enumerator": "enumerator",

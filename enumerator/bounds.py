@@ -1,7 +1,7 @@
 """Proven busy-beaver step bounds S(n, m), in one place, with their sources.
 
 S(n, m) is the most steps any halting n-state m-symbol 1D machine makes from a
-blank tape, the halting transition included (our formalism: DESIGN.md section 1;
+blank tape, the halting transition included (our formalism: docs/DESIGN.md section 1;
 a HALT entry writes and does not move, which changes no step count). At a cap
 >= S(n, m) a run that has not halted never halts, so every undecided node of
 such a build is proven non-halting by the bound, and the table is exact."""

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 import time
 from dataclasses import dataclass
+from functools import partial
 
 import numpy as np
 
@@ -206,6 +207,8 @@ def build(
     # The default-depth plan is cheap and serves the estimate too; another depth (0 runs the
     # whole tree as its top) is planned only after the estimate has let the build through.
     p = plan(space, cap, None, deciders, relabel) if split_depth in (None, default_depth(space)) else None
+    if p is not None:
+        _check_shard(shard, p)
     if budget_hours is not None:
         share = 1 if shard is None else shard[1]
         # a pilot estimate decides when it is far below the budget (a factor 4 of room)
@@ -219,8 +222,9 @@ def build(
             )
     if p is None:
         p = plan(space, cap, split_depth, deciders, relabel)
+    _check_shard(shard, p)
     chosen = p.select(shard)
-    store = _exhaustive_spool(spool, p, chosen, max_size, settle_size) if spool else None
+    store = _exhaustive_spool(spool, p, chosen, max_size, shard, settle_size) if spool else None
     results = store.finished() if store else {}
     if holdouts:  # parts spooled without their holdouts are run again
         results = {k: r for k, r in results.items() if "holdouts" in r or not r["undecided_nodes"]}
@@ -270,12 +274,23 @@ def build(
     tally.resumed = resumed
     tally.spool_damaged = store.damaged if store else 0
     tally.holdouts = part.holdouts if holdouts and tally.step_bound is None else []
+    tally.spool_clean = None if store is None else partial(store.clean, set(chosen).__contains__)
     return tally
 
 
-def _exhaustive_spool(folder, p: Plan, chosen, max_size: int | None = None, settle_size: int | None = None) -> Spool:
-    """The spool of an exhaustive build: units of this plan (and shard), sealed by their prefix.
-    A build cut by size keeps only the weight of longer outputs, so its units are another build's."""
+def _check_shard(shard, p: Plan) -> None:
+    """Shard I/N holds units I, I + N, ...: with N past the unit count some shards are empty and
+    the count would not fit the table's header; refused before any work."""
+    if shard is not None and shard[1] > p.count:
+        raise SpaceError(f"--shard {shard[0]}/{shard[1]}: this build has only {p.count:,} work units, so "
+                         f"at most {p.count:,} shards; give N from 1 to {p.count:,}")
+
+
+def _exhaustive_spool(folder, p: Plan, chosen, max_size: int | None = None, shard=None,
+                      settle_size: int | None = None) -> Spool:
+    """The spool of an exhaustive build: units of this plan and shard, sealed by their prefix.
+    A build cut by size keeps only the weight of longer outputs, so its units are another build's;
+    another shard's spool is another build's too (its table would go to the same -o)."""
     wanted = set(chosen)
 
     def expect(index):
@@ -284,6 +299,8 @@ def _exhaustive_spool(folder, p: Plan, chosen, max_size: int | None = None, sett
     ident = {"kind": "exhaustive", "plan": p.ident, "space": p.space.to_dict(), "cap": p.cap, "units": p.count}
     if max_size is not None:
         ident["keep_size"] = max_size
+    if shard is not None:
+        ident["shard"] = list(shard)
     if settle_size:  # the run-on changes what a unit records
         ident["settle_size"] = settle_size
     return Spool(folder, ident, expect)
@@ -376,21 +393,29 @@ def worst_error(space: Space, part: Partial, size: int, prior: Tally | None = No
 
 def sample(space: Space, cap: int, samples: int | None, *, seed: int = 1, deciders=ALL_DECIDERS,
            workers: int = 1, scheduler: str | None = None, until: Target | None = None,
-           prior: Tally | None = None, spool: str | None = None, on_progress=None) -> Tally:
+           prior: Tally | None = None, spool: str | None = None, on_progress=None,
+           budget_hours: float | None = DEFAULT_BUDGET_HOURS) -> Tally:
     """Run machines drawn uniformly from the full space (DESIGN.md section 4): `samples` of them,
     or fewer when `until` is met first. Reproducible from the seed, whatever the worker count:
     the samples are always whole work units 0..K-1 of the seed's stream. prior: the sampled
     tally these samples will extend, so that an error target counts its samples too. spool: a
-    folder keeping finished units, as in build(), so a killed build resumes."""
+    folder keeping finished units, as in build(), so a killed build resumes. budget_hours: a
+    build with no time limit (--until 2h) is refused when its count would take longer; None
+    turns the guard off. Units are planned lazily, so any count starts at once."""
     _check_run(space, cap)
-    if samples is not None and (not isinstance(samples, int) or samples < 1):
-        raise SpaceError(f"--sample needs a positive number of machines, got {samples!r}")
+    if samples is not None and (type(samples) is not int or not 1 <= samples < 1 << 63):
+        raise SpaceError(f"--sample needs a positive number of machines below 2^63, got {samples!r}")
     if not isinstance(seed, int) or not 0 <= seed < 1 << 63:
         raise SpaceError(f"--seed must be a whole number from 0 to 2^63 - 1, got {seed!r}")
+    if type(workers) is not int or workers < 1:
+        raise SpaceError(f"--workers must be 1 or more, got {workers!r}")
     until = until or Target()
     if samples is None and until.seconds is None:
         raise SpaceError("a sampled build needs a ceiling: --sample N (the most machines to draw), "
                          "a time budget such as --until 2h, or both")
+    if until.size is not None and until.size > cap + 1:
+        raise SpaceError(f"no output of {space.label} at cap {cap} is longer than {cap + 1} cells, so an error "
+                         f"target at size {until.size} can never be met; give a size from 1 to {cap + 1}")
     t0 = time.perf_counter()
     deadline = None if until.seconds is None else t0 + until.seconds
     bits = decider_bits(deciders)
@@ -399,6 +424,9 @@ def sample(space: Space, cap: int, samples: int | None, *, seed: int = 1, decide
     def count_of(k: int) -> int:
         return SAMPLE_UNIT if samples is None else min(SAMPLE_UNIT, samples - k * SAMPLE_UNIT)
 
+    def task(k: int) -> tuple:
+        return space.dims, space.states, space.symbols, cap, bits, k, unit_seed(seed, k), count_of(k)
+
     def expect(index):  # only whole units are spooled: a unit is fixed by (seed, index) alone
         ok = type(index) is int and 0 <= index < limit and count_of(index) == SAMPLE_UNIT
         return (str(index), SAMPLE_UNIT) if ok else None
@@ -406,41 +434,51 @@ def sample(space: Space, cap: int, samples: int | None, *, seed: int = 1, decide
     store = Spool(spool, {"kind": "sample", "space": space.to_dict(), "cap": cap, "deciders": bits,
                           "seed": seed, "unit": SAMPLE_UNIT}, expect) if spool else None
     spooled = store.finished() if store else {}
-    part, done, steps, drawn, resumed = Partial(), 0, 0, 0, set()
+    from_disk = set(spooled)
+    if budget_hours is not None and until.seconds is None:
+        _sample_budget(space, cap, samples, limit, spooled, task, budget_hours, store)
+    part, done, steps, drawn, resumed = Partial(), 0, 0, 0, 0
     worst, stopped = math.nan, "count"
     shown = "" if until.error is None else f"worst rel. error ? at size {until.size}"
     with kept(store), executors.Runner(workers if limit > 1 else 1, scheduler) as runner:
         while done < limit:
             # Rounds whose ends depend on the units done alone, so an error target stops every
-            # worker count at the same unit; a plain count runs as one round.
+            # worker count at the same unit; a plain count runs as one round, planned lazily.
             end = limit if until == Target() else min(limit, done + max(8, done // 8))
-            finished = {k: spooled.pop(k) for k in range(done, end) if k in spooled}
-            resumed |= set(finished)
-            tasks = [(space.dims, space.states, space.symbols, cap, bits, k, unit_seed(seed, k), count_of(k))
-                     for k in range(done, end) if k not in finished]
+            ahead = {k: spooled.pop(k) for k in [k for k in spooled if done <= k < end]}  # by index
+            skip = frozenset(ahead)
+            steps += sum(r["steps"] for r in ahead.values())
+            running = drawn + sum(count_of(k) for k in ahead)
             late = False
-            steps += sum(r["steps"] for r in finished.values())
-            running = drawn + sum(count_of(k) for k in finished)
-            results = runner.stream(tasks, executors.run_sample_task)
+
+            def absorb() -> None:  # keep whole units 0..K-1 only: the table is --sample K x unit
+                nonlocal done, drawn, resumed
+                while done < end and done in ahead:
+                    part.add(ahead.pop(done))
+                    resumed += done in from_disk
+                    drawn += count_of(done)
+                    done += 1
+
+            absorb()
+            results = runner.stream((task(k) for k in range(done, end) if k not in skip),
+                                    executors.run_sample_task)
             try:
                 for index, result in results:
-                    finished[index] = result
+                    ahead[index] = result
                     if store and count_of(index) == SAMPLE_UNIT:
                         store.save(index, result)
                     steps += result["steps"]
                     running += count_of(index)
+                    absorb()
                     if on_progress:
-                        on_progress(done + len(finished), None if limit == math.inf else limit,
+                        on_progress(done + len(ahead), None if limit == math.inf else limit,
                                     running, samples, steps, shown)
                     if deadline is not None and time.perf_counter() > deadline:
                         late = True
                         break
             finally:
                 results.close()
-            while done in finished:  # keep whole units 0..K-1 only: the table is --sample K x unit
-                part.add(finished.pop(done))
-                drawn += count_of(done)
-                done += 1
+            absorb()
             if until.error is not None:
                 worst, seen = worst_error(space, part, until.size, prior)
                 shown = f"worst rel. error {worst:.3g} over {seen:,} keys of size {until.size}"
@@ -455,12 +493,44 @@ def sample(space: Space, cap: int, samples: int | None, *, seed: int = 1, decide
                          "give --until more time")
     tally = Tally.from_sample(space, cap, part, drawn, seed, deciders=tuple(deciders), units=done)
     tally.seconds = time.perf_counter() - t0
-    tally.resumed = sum(1 for k in resumed if k < done)
+    tally.resumed = resumed
     tally.spool_damaged = store.damaged if store else 0
+    tally.spool_clean = None if store is None else partial(store.clean, lambda index: 0 <= index < done)
     if until != Target():
         tally.until = {"error": until.error, "size": until.size, "seconds": until.seconds,
                        "stopped_by": stopped, "worst_relative_error": None if math.isnan(worst) else worst}
     return tally
+
+
+# Most machines a core samples in a second: about 4e6 at the cheapest spaces on this project's
+# machine (1D (1,2) cap 1, 2D (1,2) cap 1); five times that, so the floor below is a true lower bound.
+MAX_SAMPLES_PER_SECOND = 2e7
+PILOT_SAMPLE_UNITS = 16  # builds of more units time their first one against the budget
+
+
+def _sample_budget(space: Space, cap: int, samples: int, limit: int, spooled: dict, task, budget_hours: float,
+                   store) -> None:
+    """Refuse a sample count that would outlast the budget: at once when even the fastest sampling
+    could not finish it, else from the time of its first unit not yet spooled (the unit is kept)."""
+    hint = "lower --sample, give --until a time limit such as 2h, or raise --budget-hours"
+    if samples / MAX_SAMPLES_PER_SECOND > budget_hours * 3600:
+        raise TooLargeError(f"sampling {samples:,} machines takes at least "
+                            f"{_cpu_time(samples / MAX_SAMPLES_PER_SECOND)}, over the budget of "
+                            f"{budget_hours:g} CPU-hours; {hint}")
+    left = limit - sum(1 for k in spooled if k < limit)
+    if left <= PILOT_SAMPLE_UNITS:
+        return  # a few units: the build itself is as quick as its estimate
+    k = next(k for k in range(limit) if k not in spooled)
+    t = time.perf_counter()
+    result = executors.run_sample_task(task(k))[1]
+    seconds = (time.perf_counter() - t) * left
+    if seconds > budget_hours * 3600:
+        raise TooLargeError(f"sampling {samples:,} machines of {space.label} at cap {cap} is estimated at "
+                            f"{_cpu_time(seconds)} (timed on its first {SAMPLE_UNIT:,}), over the budget of "
+                            f"{budget_hours:g} CPU-hours; {hint}")
+    spooled[k] = result
+    if store and task(k)[-1] == SAMPLE_UNIT:
+        store.save(k, result)
 
 
 def run_unit(space: Space, cap: int, unit, deciders=ALL_DECIDERS) -> dict:

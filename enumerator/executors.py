@@ -3,6 +3,8 @@ Each yields (index, result) as units finish, in any order; merging is exact
 addition, so the order never matters."""
 from __future__ import annotations
 
+import itertools
+import math
 import os
 import signal
 import sys
@@ -10,6 +12,8 @@ import threading
 
 from ..errors import CtmtabError
 from .native import core as _core
+
+IN_FLIGHT = 4  # tasks submitted ahead per worker: enough to keep every worker busy
 
 
 def run_task(task: tuple) -> tuple:
@@ -105,38 +109,56 @@ class Runner:
             self.client.close()
 
     def stream(self, tasks, fn=run_task):
-        """(index, result) as tasks finish, in any order. Closing the stream early cancels the
-        tasks not yet started."""
+        """(index, result) as tasks finish, in any order. tasks may be any iterable, even an
+        endless generator: at most IN_FLIGHT per worker are submitted ahead, so neither the task
+        list nor the futures ever grow with the build. Closing the stream early leaves the tasks
+        already submitted to the runner's exit (cancelled there, or failed by a killed pool)."""
+        tasks = iter(tasks)
         if self.client is not None:
-            from distributed import as_completed as dask_completed
-            futures = self.client.map(fn, tasks, pure=False)
-            done = dask_completed(futures)
+            yield from self._dask_stream(tasks, fn)
         elif self.pool is not None:
-            from concurrent.futures import as_completed
+            from concurrent.futures import FIRST_COMPLETED, wait
 
-            futures = []
-            for t in tasks:
+            # No cancel() here: a future cancelled before __exit__ kills the workers makes the
+            # pool's manager thread fail on it (InvalidStateError, CPython 3.11)
+            running = {self.pool.submit(fn, t) for t in itertools.islice(tasks, IN_FLIGHT * self.workers)}
+            while running:
                 self._check()
-                futures.append(self.pool.submit(fn, t))
-            done = as_completed(futures)
+                finished, running = wait(running, return_when=FIRST_COMPLETED)
+                self._check()
+                for f in finished:
+                    for t in itertools.islice(tasks, 1):  # keep the workers fed while the caller merges
+                        running.add(self.pool.submit(fn, t))
+                    yield f.result()
         else:
             for task in tasks:
                 yield fn(task)
-            return
+
+    def _dask_stream(self, tasks, fn):
+        from distributed import as_completed as dask_completed
+
+        ahead = IN_FLIGHT * max(4, sum(self.client.nthreads().values()))
+        live = {self.client.submit(fn, t, pure=False) for t in itertools.islice(tasks, ahead)}
+        done = dask_completed(list(live))
         try:
             for f in done:
-                self._check()
+                live.discard(f)
+                for t in itertools.islice(tasks, 1):
+                    nxt = self.client.submit(fn, t, pure=False)
+                    live.add(nxt)
+                    done.add(nxt)
                 yield f.result()
         finally:
-            if not self._signalled:  # else the pool's manager fails them, and must not be raced
-                for f in futures:
-                    f.cancel()
+            if live:
+                self.client.cancel(list(live))
 
 
 def _worker_init(parent: int) -> None:
     """In each pool worker: die with the parent, even when it is SIGKILLed (Linux), instead of
-    running on under PID 1; and take SIGTERM's default, not the parent's handler."""
+    running on under PID 1; take SIGTERM's default, not the parent's handler; and leave Ctrl-C to
+    the parent (which stops them), so that it prints one line, not one traceback per worker."""
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     if sys.platform.startswith("linux"):
         try:
             import ctypes
@@ -149,30 +171,84 @@ def _worker_init(parent: int) -> None:
         os._exit(1)
 
 
+SCHEDULER_TIMEOUT_ENV = "CTMTAB_SCHEDULER_TIMEOUT"
+SCHEDULER_TIMEOUT = 15.0  # seconds for the whole handshake: a scheduler answers in well under one
+
+
 def _dask_client(address: str):
     try:
         from distributed import Client
     except ImportError:
         raise CtmtabError("--scheduler needs Dask: pip install 'ctmtab[cluster]'") from None
-    _reachable(address)
+    limit = _scheduler_timeout()
+    _handshake(address, limit)
     try:
-        return Client(address, timeout="30s")
-    except (OSError, TimeoutError) as exc:
-        raise CtmtabError(f"cannot reach the Dask scheduler at {address} ({exc}); check the address") from None
+        return Client(address, timeout=limit)
+    except Exception as exc:  # whatever answered the handshake would not take a client
+        raise _unreachable(address, exc, limit) from None
+
+
+def _scheduler_timeout() -> float:
+    text = os.environ.get(SCHEDULER_TIMEOUT_ENV, "")
+    if not text:
+        return SCHEDULER_TIMEOUT
+    try:
+        value = float(text)
+    except ValueError:
+        value = math.nan
+    if not 0 < value <= 3600:
+        raise CtmtabError(f"${SCHEDULER_TIMEOUT_ENV} is {text!r}; give the seconds to wait for a Dask "
+                          "scheduler, e.g. 15")
+    return value
+
+
+def _handshake(address: str, limit: float) -> None:
+    """Connect and exchange Dask's handshake under a hard time limit, so that a malformed address,
+    a closed port, a silent listener or a server speaking another protocol fails in one line
+    instead of hanging or raising from inside Dask."""
+    import asyncio
+    from concurrent.futures import ThreadPoolExecutor
+
+    from distributed.comm import connect
+
+    _reachable(address)
+
+    async def once():
+        comm = await asyncio.wait_for(connect(address, timeout=limit), limit)
+        await comm.close()
+
+    try:
+        # in a thread of its own: the caller may be inside a running event loop (a notebook)
+        with ThreadPoolExecutor(1) as one:
+            one.submit(asyncio.run, once()).result()
+    except Exception as exc:  # malformed address, unknown scheme, garbage from the peer, time out
+        raise _unreachable(address, exc, limit) from None
+
+
+def _unreachable(address: str, exc: BaseException, limit: float | None = None) -> CtmtabError:
+    reason = " ".join(str(exc).split())[:200] or type(exc).__name__
+    if limit is not None and (isinstance(exc, TimeoutError) or "Timed out" in reason):
+        return CtmtabError(f"no Dask scheduler answered at {address!r} within {limit:g} s (something listens "
+                           "there but does not speak Dask's protocol); check the address and port, or set "
+                           f"${SCHEDULER_TIMEOUT_ENV} to wait longer")
+    return CtmtabError(f"cannot use the Dask scheduler at {address!r} ({reason}); check the address, "
+                       "e.g. tcp://host:8786")
 
 
 def _reachable(address: str) -> None:
-    """Fail in a second, with the reason, when nothing listens at a tcp:// address."""
+    """Fail in a second, with the reason, when nothing listens at a tcp:// address (Dask itself
+    retries a refused connection until its time limit)."""
     import socket
     from urllib.parse import urlsplit
 
-    if not address.startswith("tcp://"):
+    url = address if "://" in address else "tcp://" + address  # tcp: Dask's default protocol
+    if not url.startswith("tcp://"):
         return
-    parts = urlsplit(address)
     try:
+        parts = urlsplit(url)
         socket.create_connection((parts.hostname, parts.port or 8786), timeout=5).close()
     except (OSError, ValueError) as exc:
-        raise CtmtabError(f"cannot reach the Dask scheduler at {address} ({exc}); check the address") from None
+        raise _unreachable(address, exc) from None
 
 
 def cores() -> int:

@@ -8,7 +8,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..errors import InvariantError, MergeError
+from ..errors import InvariantError, MergeError, TooLargeError
 from .bounds import bound_reached
 from .deciders import DECIDERS, STEP_BOUND
 from .space import Space
@@ -474,54 +474,61 @@ class Tally:
             self.undecided_nodes = 0
 
     def check(self) -> None:
-        """Raise InvariantError unless every exactness invariant holds."""
+        """Raise InvariantError unless every exactness invariant holds (a build's own)."""
+        for fault in self.faults():
+            raise InvariantError(f"{fault}; this is a bug, please report it")
+
+    def check_input(self, name: str) -> None:
+        """The same invariants for a tally read from a file, before it is combined with others: a
+        file can break them, so the error is bad input naming the file, never a bug."""
+        for fault in self.faults():
+            raise MergeError(f"{name}: {fault}; the file is corrupt or was edited (ctmtab verify lists its problems)")
+
+    def faults(self):
+        """Every exactness invariant the tally breaks, one line each, the first first."""
         total = self.halting + self.non_halting + self.undecided
         if total != self.weight:
-            raise InvariantError(
-                f"halting + non-halting + undecided = {total}, not the weight of the covered "
-                f"units {self.weight}; this is a bug, please report it"
-            )
+            yield f"halting + non-halting + undecided = {total}, not the weight of the covered units {self.weight}"
+        if self.mode == "sampled" and self.weight != self.samples:
+            yield f"the samples weigh {self.weight}, not the sample size {self.samples}"
         if self.mode == "exhaustive" and self.covered is None and self.weight != self.space.size:
-            raise InvariantError("a complete build does not cover the space size; this is a bug")
+            yield f"a complete build weighs {self.weight}, not the space size {self.space.size}"
         if self.proofs is not None and sum(self.proofs.values()) != self.non_halting:
-            raise InvariantError("the proofs by decider do not sum to the non-halting weight; this is a bug")
+            yield "the proofs by decider do not sum to the non-halting weight"
         settled = 0 if self.settle is None else self.settle["halting"] + self.settle["proven"]
         if self.undecided_by_size is not None and sum(self.undecided_by_size.values()) + settled != self.undecided:
-            raise InvariantError("the undecided weight by size (and what the run-on settled) does not sum to the "
-                                 "undecided weight; this is a bug")
+            yield "the undecided weight by size (and what the run-on settled) does not sum to the undecided weight"
         if self.settle is not None:
-            self._check_settle()
+            yield from self._settle_faults()
         if sum(self.steps_hist) != self.halting or sum(self.length_hist) != self.halting:
-            raise InvariantError("a histogram does not sum to the halting weight; this is a bug")
+            yield "a histogram does not sum to the halting weight"
         per_run = self.images if self.mode == "sampled" else self.blanks
         if self.total_count != per_run * self.halting:
-            raise InvariantError(
-                f"the expanded counts sum to {self.total_count}, not {per_run} x halting = "
-                f"{per_run * self.halting}; the symmetry expansion is inconsistent (a bug)"
-            )
+            yield (f"the expanded counts sum to {self.total_count}, not {per_run} x halting = "
+                   f"{per_run * self.halting}; the symmetry expansion is inconsistent")
         by_size: dict = {}
         for shape, group in self.groups.items():
             by_size[size_of(shape)] = by_size.get(size_of(shape), 0) + sum(group.values())
         for shape, (weight, _, _) in self.dropped.items():
             if self.max_size is None or size_of(shape) <= self.max_size or shape in self.groups:
-                raise InvariantError(f"shape {shape} is recorded as cut but the cut keeps it (a bug)")
+                yield f"shape {shape} is recorded as cut but the cut keeps it"
             by_size[size_of(shape)] = by_size.get(size_of(shape), 0) + weight
         for size, total in by_size.items():
             hist = self.length_hist[size] if size < len(self.length_hist) else 0
             if total != per_run * hist:
-                raise InvariantError(f"size {size}: counts disagree with the output-size histogram (a bug)")
+                yield f"size {size}: counts disagree with the output-size histogram"
 
 
-    def _check_settle(self) -> None:
+    def _settle_faults(self):
         """The run-on's own invariants: its halts expand to blanks x its halting weight, none is
         larger than the settle size, and every node it left undecided outgrew that size."""
         k = self.settle["size"]
         if sum(sum(g.values()) for g in self.late_groups.values()) != self.blanks * self.settle["halting"]:
-            raise InvariantError("the halts past the cap do not expand to blanks x their weight (a bug)")
+            yield "the halts past the cap do not expand to blanks x their weight"
         if any(size_of(s) > k for s in self.late_groups):
-            raise InvariantError(f"a halt past the cap is larger than the settle size {k} (a bug)")
+            yield f"a halt past the cap is larger than the settle size {k}"
         if any(max(r, c) <= k for r, c in (self.undecided_by_size or {})):
-            raise InvariantError(f"an undecided node within the settle size {k} was left (a bug)")
+            yield f"an undecided node within the settle size {k} was left"
 
 
 def combine_samples(tallies: list, where: list | None = None) -> Tally:
@@ -534,6 +541,7 @@ def combine_samples(tallies: list, where: list | None = None) -> Tally:
     for t, name in zip(tallies, where):
         if t.mode != "sampled":
             raise MergeError(f"{name} is an exhaustive table; only sampled tables combine with sampled ones")
+        t.check_input(name)
         if (t.space, t.cap, set(t.deciders)) != (first.space, first.cap, set(first.deciders)):
             raise MergeError(f"{name} samples {t.space.label} at cap {t.cap} with deciders {list(t.deciders)}, "
                              f"not {first.space.label} at cap {first.cap} with {list(first.deciders)}; "
@@ -544,6 +552,8 @@ def combine_samples(tallies: list, where: list | None = None) -> Tally:
                 raise MergeError(f"{name} and {also} both hold samples of seed {seed}, which would count the "
                                  "same machines twice; draw the extra samples under a new --seed")
             owner[seed] = name
+    names = [name if where.count(name) == 1 else f"{name} (part {i + 1})" for i, name in enumerate(where)]
+    refuse_overlap(first.space, [(name, seed, size) for t, name in zip(tallies, names) for seed, size in t.streams])
     streams = sorted(s for t in tallies for s in t.streams)
     out = Tally(
         **summed(tallies), moments=add_groups(t.moments for t in tallies), deciders=tuple(first.deciders),
@@ -553,6 +563,27 @@ def combine_samples(tallies: list, where: list | None = None) -> Tally:
     )
     out.check()
     return out
+
+
+def refuse_overlap(space: Space, streams, fix: str = "draw the extra samples under another --seed") -> None:
+    """MergeError when two work units of these (label, seed, size) streams draw from one stretch
+    of the generator: distinct seeds alone do not keep streams apart (enumerator/streams.py)."""
+    from .driver import SAMPLE_UNIT
+    from .streams import first_overlap
+
+    try:
+        found = first_overlap(streams, space.entries, SAMPLE_UNIT)
+    except TooLargeError as exc:
+        raise MergeError(f"{', '.join(dict.fromkeys(label for label, _, _ in streams))}: {exc}") from None
+    if found is not None:
+        (i, sa, ua), (j, sb, ub) = found
+        a, b = streams[i][0], streams[j][0]
+        if a == b:  # one table's own streams: no choice of seed mends it
+            raise MergeError(f"{a}: unit {ua} of seed {sa} and unit {ub} of seed {sb} draw overlapping stretches "
+                             "of the sampling generator, so it counts the same machines twice; the file is corrupt "
+                             "or was edited, rebuild it")
+        raise MergeError(f"{a} (seed {sa}, unit {ua}) and {b} (seed {sb}, unit {ub}) draw overlapping stretches of "
+                         f"the sampling generator, so they would count the same machines twice; {fix}")
 
 
 def add_groups(sources) -> dict:

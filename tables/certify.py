@@ -14,6 +14,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..enumerator.bounds import step_bound
+from ..enumerator.deciders import STEP_BOUND
+from ..enumerator.space import Space
 from ..errors import InconsistentTableError
 
 MAX_SIZES = 1 << 20  # size records in one header: far above any cap's spans
@@ -80,8 +83,10 @@ def whole(v, what: str, owner: str = "certificate") -> int:
 
 
 
-def parse(header: dict, non_halting: int, undecided: int, cap: int, dims: int = 1) -> Certificate | None:
-    """The certificate of a loaded header, checked against the totals; None when absent."""
+def parse(header: dict, non_halting: int, undecided: int, cap: int, dims: int = 1,
+          space: Space | None = None, mode: str = "exhaustive") -> Certificate | None:
+    """The certificate of a loaded header, checked against the totals, the deciders the header
+    lists and the one table of proven step bounds (enumerator/bounds.py); None when absent."""
     cert = header.get("certificate")
     if cert is None:
         return None
@@ -111,14 +116,27 @@ def parse(header: dict, non_halting: int, undecided: int, cap: int, dims: int = 
     if settle is not None and any(max(r, c) <= settle["size"] for r, c, _ in by_size):
         raise InconsistentTableError(f"the certificate leaves undecided weight within its settle size {settle['size']}, "
                                      "which the run-on decides")
+    # a decider the build did not run proved nothing
+    ran = header.get("deciders")
+    if isinstance(ran, list):
+        idle = [k for k, w in parsed_proofs.items() if w and k != STEP_BOUND and k not in ran]
+        if idle:
+            raise InconsistentTableError(f"the certificate credits {idle[0]!r} with non-halting weight, "
+                                         "but the header's deciders do not list it")
     bound = cert.get("step_bound")
     if bound is not None:
         if not isinstance(bound, dict) or not isinstance(bound.get("source"), str):
             raise InconsistentTableError("the certificate's step_bound is malformed")
-        if whole(bound.get("steps"), "step bound") > cap or undecided:
-            raise InconsistentTableError("the certificate claims a step bound that the cap or the "
-                                         "undecided total contradicts")
+        check_step_bound(whole(bound.get("steps"), "step bound"), bound["source"], cap, undecided,
+                         space, mode)
+    elif parsed_proofs.get(STEP_BOUND):
+        raise InconsistentTableError("the certificate credits the step bound with non-halting weight "
+                                     "but claims no step bound")
     nodes = whole(cert.get("undecided_nodes", 0), "undecided_nodes")
+    # a node stands for at least one machine (a sample counts one)
+    if nodes > undecided or ("undecided_nodes" in cert and (nodes == 0) != (undecided == 0)):
+        raise InconsistentTableError(f"the certificate's {nodes} undecided tree nodes contradict the "
+                                     f"undecided total {undecided}")
     proof_nodes = cert.get("proof_nodes")
     if proof_nodes is not None:
         if not isinstance(proof_nodes, dict) or set(proof_nodes) != set(parsed_proofs):
@@ -156,6 +174,29 @@ def parse_settle(st, cap: int, dims: int) -> dict | None:
     if (out["halting"] == 0) != (not out["late_keys"]):
         raise InconsistentTableError("the certificate's settled halting weight contradicts its late keys")
     return out
+
+
+def check_step_bound(steps: int, source: str, cap: int, undecided: int, space: Space | None,
+                     mode: str = "exhaustive") -> None:
+    """A claimed step bound must be the proven S(n, m) of exactly this space, with its source,
+    at a cap that reaches it, in an exhaustive table with nothing left undecided: anything else
+    would turn certified intervals into false points."""
+    proven = None if space is None else step_bound(space)
+    if mode != "exhaustive":
+        raise InconsistentTableError("the certificate of a sampled table claims a step bound; only exhaustive "
+                                     "builds use one")
+    if space is not None and proven is None:
+        raise InconsistentTableError(f"the certificate claims a step bound S = {steps}, but none is proven "
+                                     f"for {space.label} (enumerator/bounds.py)")
+    if proven is not None and (steps, source) != proven:
+        raise InconsistentTableError(f"the certificate claims the step bound S = {steps} ({source}), but the "
+                                     f"proven bound for {space.label} is S = {proven[0]} ({proven[1]})")
+    if steps > cap:
+        raise InconsistentTableError(f"the certificate claims the step bound S = {steps} at cap {cap}, below it; "
+                                     "a bound the runs never reached proves nothing")
+    if undecided:
+        raise InconsistentTableError(f"the certificate claims a step bound, yet {undecided} undecided "
+                                     "machines remain")
 
 
 def bounds(c, u_key: int, u_total: int, total: int):

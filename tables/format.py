@@ -1,4 +1,4 @@
-"""The ctmtab table file, format 1.0 (specified in docs/FORMAT.md).
+"""The ctmtab table file, format MAJOR.MINOR below (specified in docs/FORMAT.md).
 
     preamble  56 bytes: magic, major, minor, header length, body length, header sha256
     header    msgpack map, at most MAX_HEADER bytes, readable without the body

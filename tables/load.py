@@ -207,6 +207,7 @@ def check_header(header: dict, where: str = "table") -> None:
           where, "the header's covered units are malformed")
     _need(shard is None or (isinstance(shard, list) and len(shard) == 2 and _int(shard[1], 1)
                             and _int(shard[0], 0, shard[1] - 1)), where, "the header's shard is malformed")
+    _check_units(header, units, where)
     generator = _optional(header, "generator", dict, where)
     _need(all(isinstance(v, str) for v in generator.values()), where, "the header's generator is malformed")
     build = _optional(header, "build", dict, where)
@@ -232,6 +233,9 @@ def check_header(header: dict, where: str = "table") -> None:
               f"the sample's images_per_sample {sample['images_per_sample']} is not what a symmetry expansion gives")
         _need(sample.get("halting_samples", int(totals["halting"])) == int(totals["halting"]), where,
               "the sample's halting_samples contradicts the halting total")
+        ran = sum(int(totals[name]) for name in ("halting", "non_halting", "undecided"))
+        _need(ran == sample["size"], where, f"halting + non_halting + undecided = {ran} samples, not the "
+              f"sample size {sample['size']}")
     keys = header.get("keys")
     _need(isinstance(keys, dict) and isinstance(keys.get("groups"), list), where, "the header has no key summary")
     last = None
@@ -249,6 +253,34 @@ def check_header(header: dict, where: str = "table") -> None:
         last = shape
     _need(keys.get("distinct") == sum(k for _, k in keys["groups"]), where,
           "the header's key summary does not add up to its distinct count")
+
+
+def _check_units(header: dict, units: dict, where: str) -> None:
+    """The units against the totals: what the covered units weigh is what the totals add up to,
+    a shard covers exactly the units of its index, and every unit covered weighs the whole space."""
+    totals = header["totals"]
+    ran = sum(int(totals[name]) for name in ("halting", "non_halting", "undecided"))
+    count, covered, shard = units.get("count", 1), units.get("covered", "all"), units.get("shard")
+    if "weight" in units:
+        _need(int(units["weight"]) == ran, where, f"halting + non_halting + undecided = {ran}, not the weight "
+              f"{units['weight']} of the units it covers")
+    space = header["space"]
+    n_m = space["states"] * space["symbols"]
+    size = ((2 if space["dims"] == 1 else 4) * n_m + space["symbols"]) ** n_m
+    _need(int(totals["space_size"]) == size, where, f"the header's space size {totals['space_size']} is not "
+          f"the {size} machines of its space")
+    if shard is None:
+        _need(covered == "all", where, "the header lists covered units but no shard")
+        _need(header.get("mode") != "exhaustive" or ran == size, where, f"halting + non_halting + undecided = "
+              f"{ran}, not the space size {size}")
+        return
+    i, n = shard
+    # a shard's units are those congruent to its index: compare the length first (count is untrusted)
+    _need(covered != "all" and len(covered) == len(range(i, count, n)) and covered == list(range(i, count, n)),
+          where, f"the covered units are not those of shard {i}/{n} (units {i} mod {n} of {count})")
+    if header.get("mode") == "exhaustive" and len(covered) == count:
+        _need(ran == size, where, f"shard {i}/{n} covers every unit, but its totals add up to {ran}, not the "
+              f"space size {size}")
 
 
 def body_bounds(header: dict) -> tuple[int, int]:

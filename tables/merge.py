@@ -6,6 +6,7 @@ import dataclasses
 from ..enumerator.tally import combine_samples, images_per_sample, summed
 from ..errors import MergeError
 from .table import Table
+from .verify import shard_weight_problems
 
 SAME = ("space", "cap", "mode", "formalism", "blanks", "deciders")
 
@@ -54,6 +55,16 @@ def merge(tables: list[Table], *, command: str = "", builder: str | None = None,
         hint = " (shards " + ", ".join(f"{i}/{of}" for i in shards) + ")" if shards else ""
         raise MergeError(f"{len(missing)} of {count} work units are missing{hint}; add the missing shard files")
     tallies = [t.to_tally() for t in tables]
+    for t, tally in zip(tables, tallies):  # what a file can break is bad input, named, never a bug
+        tally.check_input(str(t.source))
+        wrong = shard_weight_problems(t, [])
+        if wrong:
+            raise MergeError(f"{t.source}: {wrong[0]}; the file is corrupt or was edited, rebuild that shard")
+    weight = sum(t.weight for t in tallies)
+    if weight != first.space.size:
+        raise MergeError(f"the shards' units weigh {weight} machines in all, not the space size "
+                         f"{first.space.size}: one of {', '.join(str(t.source) for t in tables)} is corrupt or was "
+                         "edited (ctmtab verify, with the compiled core, names it)")
     merged = dataclasses.replace(tallies[0], **summed(tallies), dropped=_summed_cuts(tallies), covered=None,
                                  shard=None, weight=None)
     merged.seconds = sum(float(t.header.get("build", {}).get("seconds", 0)) for t in tables)

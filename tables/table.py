@@ -20,6 +20,7 @@ from . import certify
 from . import cut as sizecut
 from .cut import DroppedKeyError
 from . import format as fmt
+from . import keys as keytext
 from .arrays import Hist, codes_of, encode_counts, encode_hist, exact_sum, fits_code64, symbols_of
 
 FORMALISM = "busy-beaver: entries MOVE(write, direction, next) or HALT(write); every transition is a step"
@@ -121,7 +122,11 @@ class Table:
         self.cut = sizecut.parse(header, self.space.dims, self.space.symbols, self.cap, groups)
         # the dropped weight stays in the total, so probabilities keep the true normalisation
         self.total = sum(exact_sum(g.counts) for g in groups.values()) + (self.cut.weight if self.cut else 0)
-        self.certificate = certify.parse(header, self.non_halting, self.undecided, self.cap, self.space.dims)
+        try:
+            self.certificate = certify.parse(header, self.non_halting, self.undecided, self.cap, self.space.dims,
+                                            self.space, self.mode)
+        except InconsistentTableError as exc:
+            raise InconsistentTableError(f"{source}: {exc}; the file is corrupt or was edited") from None
         # the run-on past the cap (certificate "settle"): shape -> Group of the runs that halted later
         self.late = late or {}
         settle = None if self.certificate is None else self.certificate.settle
@@ -369,46 +374,34 @@ class Table:
         fmt.write_atomic(path, self.to_bytes())
 
     # ---- keys
-    def _parse_key(self, key) -> tuple[tuple, np.ndarray]:
-        """A key as (shape, symbols). Accepts "0110", "01/10", "3.11.2", int sequences, numpy arrays."""
+    def parse_key(self, key) -> tuple[tuple, np.ndarray]:
+        """A key as (shape, symbols): key text (tables/keys.py: "0110", "01/10", over 10 symbols
+        "3.11.0" or "10."), bytes of symbols, an int sequence or a numpy array of integers."""
         m = self.space.symbols
         if isinstance(key, (bytes, bytearray)):
             arr = np.frombuffer(bytes(key), dtype=np.uint8)
         elif isinstance(key, str):
-            rows = key.split("/")
-            try:
-                parsed = [[int(x) for x in (r.split(".") if "." in r else r)] for r in rows]
-            except ValueError:
-                raise TableError(f"key {key!r} is not a string of symbols 0..{m - 1}") from None
-            if len(rows) > 1 or self.space.dims == 2:
-                if len({len(r) for r in parsed}) != 1:
-                    raise TableError(f"key {key!r}: rows differ in length")
-                arr = np.array(parsed, dtype=np.int64)
-            else:
-                arr = np.array(parsed[0], dtype=np.int64)
+            arr = keytext.parse(key, m)
+            if self.space.dims == 2 and arr.ndim == 1:
+                arr = arr[None, :]  # a 2D key of one row
         else:
             try:
                 arr = np.asarray(key)
             except (ValueError, TypeError):  # ragged rows
-                raise TableError(f"key {key!r} is not a {self.space.dims}D array of symbols") from None
+                raise TableError(f"key {key!r:.60} is not a {self.space.dims}D array of symbols") from None
+        if isinstance(key, str) and arr.ndim != self.space.dims:
+            raise TableError(f"key {keytext.shown(key)} has {len(arr)} rows joined by '/', but the keys of this "
+                             "1D table are one row; leave out the '/'")
         if arr.ndim != self.space.dims or arr.size == 0:
-            raise TableError(f"key {key!r} is not a non-empty {self.space.dims}D array of symbols")
-        return tuple(arr.shape), self._symbols(arr, f"key {key!r}").reshape(-1)
+            raise TableError(f"key {keytext.shown(key)} is not a non-empty {self.space.dims}D array of symbols")
+        return tuple(arr.shape), self._symbols(arr, f"key {keytext.shown(key)}").reshape(-1)
+
+    _parse_key = parse_key  # the name older callers use
 
     def _symbols(self, arr: np.ndarray, what: str) -> np.ndarray:
-        """arr as uint8 symbols, refusing non-integers and symbols outside 0..m-1 (one min and one
-        max, so a bad symbol never aliases another key's code)."""
-        m = self.space.symbols
-        if arr.dtype == bool:
-            arr = arr.astype(np.uint8)
-        elif not np.issubdtype(arr.dtype, np.integer):
-            raise TableError(f"{what} holds {arr.dtype} values; give integer symbols 0..{m - 1}")
-        if arr.size:
-            low, high = int(arr.min()), int(arr.max())
-            if low < 0 or high >= m:
-                raise TableError(f"{what} holds the symbol {low if low < 0 else high}, outside 0..{m - 1} "
-                                 f"of this {self.space.label} table; fix the key")
-        return arr.astype(np.uint8, copy=False)
+        """arr as uint8 symbols (keys.as_symbols: integers only, each in 0..m-1)."""
+        return keytext.as_symbols(arr, self.space.symbols, what, f" of this {self.space.label} table",
+                                  "fix the key")
 
     def require_halting(self) -> None:
         """Refuse a table where no run halted (it has no probabilities): one clear error, never
@@ -421,12 +414,8 @@ class Table:
                              f"probability or CTM; {fix} raise --max-steps")
 
     def key_text(self, shape: tuple, row: np.ndarray) -> str:
-        sep = "" if self.space.symbols <= 10 else "."
-        cells = [str(int(s)) for s in row]
-        if len(shape) == 1:
-            return sep.join(cells)
-        c = shape[1]
-        return "/".join(sep.join(cells[i: i + c]) for i in range(0, len(cells), c))
+        """The one spelling of a key (tables/keys.py); parse_key reads it back as itself."""
+        return keytext.write(self.space.symbols, shape, row)
 
     def _position(self, shape: tuple, rows: np.ndarray) -> np.ndarray:
         """Index of each row in its group, -1 where absent."""
@@ -445,7 +434,7 @@ class Table:
 
     def _find(self, key) -> tuple[tuple, int]:
         """(shape, index in its group) of one key; index -1 where absent."""
-        shape, row = self._parse_key(key)
+        shape, row = self.parse_key(key)
         return shape, int(self._position(shape, row[None, :])[0])
 
     def count(self, key) -> int:
@@ -535,7 +524,7 @@ class Table:
         in [c, c + U] and the true halting total in [H, H + U], U = undecided runs).
         Sampled tables: an approximate 95% interval from the standard error (not certified)."""
         self.require_halting()
-        shape = self._parse_key(key)[0]
+        shape = self.parse_key(key)[0]
         if self.dropped(shape):  # bounded below only
             return self.dropped_bound(shape), math.inf
         if self.mode == "sampled":
@@ -571,6 +560,16 @@ class Table:
     def exact(self) -> bool:
         """An exhaustive table with nothing undecided: every count is the unbounded-runtime count."""
         return self.mode == "exhaustive" and self.undecided == 0
+
+    @property
+    def exact_by(self) -> str | None:
+        """What made the table exact: "step-bound" (the cap reaches a proven S(n, m), which proved
+        the runs left at the cap) or "proofs" (every run halted or a decider proved it never
+        halts, no bound used); None when it is not exact."""
+        if not self.exact:
+            return None
+        bound = self.certificate.step_bound if self.certificate is not None else None
+        return "step-bound" if bound is not None else "proofs"
 
     def standard_error(self, key) -> float:
         """Sampled tables: the standard error of the probability estimate (delta method, see
@@ -631,18 +630,34 @@ class Table:
 
     def lookup(self, keys, missing: str = "nan") -> dict:
         """Vectorised lookups. keys: a list of keys, or an N x L (1D) / N x R x C (2D)
-        numpy array of one shape. Returns arrays: count (float64), probability, ctm."""
+        numpy array of one shape; zero keys give empty arrays, one key alone (a string) is
+        refused. Returns arrays: count (float64), probability, ctm."""
         if missing not in MISSING_POLICIES:
             self._missing(None, missing)  # the one error for an unknown policy
         self.require_halting()
+        one = "one key per row" if self.space.dims == 1 else "N x rows x cols"
+        if isinstance(keys, (str, bytes, bytearray)):  # iterating it would look up each character
+            raise TableError(f"lookup takes a list of keys, not the one key {keytext.shown(keys)}; "
+                             "give [key], or use ctm(key)")
+        if isinstance(keys, np.ndarray) and keys.ndim <= self.space.dims:
+            raise TableError(f"a lookup array of shape {keys.shape} holds no batch of keys; give {one} "
+                             "(a single key as [key])")
         if isinstance(keys, np.ndarray) and keys.ndim == self.space.dims + 1:
-            if 0 in keys.shape[1:]:
-                raise TableError(f"lookup keys of shape {keys.shape[1:]} are empty; give at least one symbol")
-            batches = {tuple(keys.shape[1:]): (None, self._symbols(keys, "a lookup key array")
-                                               .reshape(len(keys), -1))}
             n = len(keys)
+            if n == 0:  # zero keys is a batch too: empty answers, whatever the dtype
+                batches = {}
+            elif 0 in keys.shape[1:]:
+                raise TableError(f"lookup keys of shape {keys.shape[1:]} are empty; give at least one symbol")
+            else:
+                batches = {tuple(keys.shape[1:]): (None, self._symbols(keys, "a lookup key array")
+                                                   .reshape(n, -1))}
         else:
-            parsed = [self._parse_key(k) for k in keys]
+            try:
+                keys = list(keys)
+            except TypeError:
+                raise TableError(f"lookup takes a list of keys or an array ({one}), not a "
+                                 f"{type(keys).__name__}") from None
+            parsed = [self.parse_key(k) for k in keys]
             n = len(parsed)
             batches = {}
             for i, (s, _) in enumerate(parsed):  # one search per shape, not per key
@@ -833,7 +848,7 @@ class Table:
         cert = self.certificate
         if cert is None or self.mode != "exhaustive":
             return None
-        return {"exact": self.exact, "step_bound": cert.step_bound, "undecided_nodes": cert.nodes,
+        return {"exact": self.exact, "exact_by": self.exact_by, "step_bound": cert.step_bound, "undecided_nodes": cert.nodes,
                 "proofs": dict(cert.proofs), "proof_nodes": cert.proof_nodes,
                 "settle": None if cert.settle is None else {k: v for k, v in cert.settle.items() if k != "late_keys"},
                 "widest_interval_by_shape": self.interval_widths()}

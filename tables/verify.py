@@ -1,15 +1,20 @@
 """Everything a collaborator can check in a table beyond its checksums."""
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 from ..enumerator.tally import blank_perms, dihedral_images
+from ..errors import CoreMissingError, CtmtabError, TooLargeError
 from .table import Table
 
 
-def problems(table: Table) -> list[str]:
-    """Every invariant the table breaks, as one line each; empty when it is sound."""
-    out = []
+def problems(table: Table, notes: list | None = None) -> list[str]:
+    """Every invariant the table breaks, as one line each; empty when it is sound. notes, when
+    given, receives a line for each check that could not run here (no compiled core, too large)."""
+    notes = [] if notes is None else notes
+    out = shard_weight_problems(table, notes)
     t = table
     covered = t.header.get("units", {}).get("covered") == "all"
     per_run = t.blanks
@@ -30,6 +35,8 @@ def problems(table: Table) -> list[str]:
         out.append("the output-size histogram does not sum to the halting total")
     if len(t.hist_steps) > t.cap + 1:
         out.append(f"the step histogram reaches past the cap {t.cap}")
+    if t.mode == "sampled":
+        out += _streams(t, notes)
     for shape in t.shapes:
         out += [f"shape {shape}: {p}" for p in _closure(t, shape)]
         if t.mode == "sampled":
@@ -43,6 +50,66 @@ def problems(table: Table) -> list[str]:
         if size >= len(t.hist_len) or total != per_run * t.hist_len[size]:
             out.append(f"size {size}: the counts disagree with the output-size histogram")
     return out
+
+
+def shard_weight_problems(t: Table, notes: list) -> list[str]:
+    """A shard's weight, rebuilt: the plan (the top of the tree, cut at the header's depth) gives
+    every unit's weight, and the shard's covered units must weigh what its totals add up to. Only
+    the compiled core can rebuild a plan; the loader has already tied the totals to units.weight
+    and, for a file covering every unit, to the space size."""
+    units = t.header.get("units", {})
+    covered = units.get("covered", "all")
+    if t.mode != "exhaustive" or covered == "all" or len(covered) == units.get("count"):
+        return []
+    from ..enumerator.units import default_depth
+
+    depth = units.get("depth", 0)
+    if not 1 <= depth <= default_depth(t.space) + 1:  # a deeper top can cost as much as a build
+        notes.append(f"the weight of the shard's units was not recomputed (split depth {depth}: rebuilding "
+                     "its plan costs too much here); rebuild the shard to check it")
+        return []
+    deciders = tuple(t.header.get("deciders", []))
+    relabel = "symbol-relabelling" in t.header.get("symmetries", [])
+    try:
+        p = _plan(t.space, t.cap, depth, deciders, relabel)
+    except CoreMissingError:
+        notes.append("the weight of the shard's units was not recomputed (no compiled core here); "
+                     "verify it where ctmtab can build")
+        return []
+    except CtmtabError as exc:
+        return [f"the shard's plan cannot be rebuilt ({exc})"]
+    if p.ident != units.get("plan") or p.count != units.get("count"):
+        return [f"the plan {units.get('plan')!r} of {units.get('count')} units is not the plan rebuilt from "
+                f"the space, cap, deciders and depth ({p.ident!r}, {p.count} units)"]
+    weight = sum(p.unit(k).weight for k in covered)
+    if weight != int(units.get("weight", -1)):
+        return [f"the shard's units weigh {weight} machines, not the {units.get('weight')} its header and "
+                "totals claim"]
+    return []
+
+
+def _streams(t: Table, notes: list) -> list[str]:
+    """The table's own streams must draw from disjoint stretches of the generator."""
+    from ..enumerator.driver import SAMPLE_UNIT
+    from ..enumerator.streams import first_overlap
+
+    try:
+        found = first_overlap([(None, seed, size) for seed, size in t.streams], t.space.entries, SAMPLE_UNIT)
+    except TooLargeError as exc:
+        notes.append(f"the streams were not checked for overlap: {exc}")
+        return []
+    if found is None:
+        return []
+    (_, sa, ua), (_, sb, ub) = found
+    return [f"unit {ua} of seed {sa} and unit {ub} of seed {sb} draw overlapping stretches of the sampling "
+            "generator: the table counts those machines twice"]
+
+
+@functools.lru_cache(maxsize=4)  # the shards of one build share their plan
+def _plan(space, cap: int, depth: int, deciders: tuple, relabel: bool):
+    from ..enumerator.driver import plan
+
+    return plan(space, cap, depth, deciders, relabel)
 
 
 def _moments(table: Table, shape: tuple) -> list[str]:

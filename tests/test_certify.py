@@ -67,8 +67,8 @@ def cps(text, **how):
 # ---- n-gram CPS on hand-built machines, both ways
 
 @pytest.mark.parametrize("machine", [
-    "0RB1LA_1LA1RB_------_------_------",   # bouncer (shared/notes/undecided.md)
-    "0RB0LA_1LA1RB_------_------_------",   # binary counter (same notes)
+    "0RB1LA_1LA1RB_------_------_------",   # bouncer (docs/HOLDOUTS.md)
+    "0RB0LA_1LA1RB_------_------_------",   # binary counter (docs/HOLDOUTS.md)
     "0RB---_0LA---",                        # a two-cell shuttle on blanks
     "1RA---",                               # runs right forever on blanks
 ])
@@ -337,7 +337,7 @@ def test_cps_proofs_on_52_holdouts_survive_a_long_run():
     """1D (5,2) at cap 500, a few work units run without the CPS: every node the CPS then
     proves must run 20,000 steps without meeting an undefined entry (the one-machine
     simulator, which shares no code with the CPS or the search). The measured late halts of
-    (5,2) all come by step 19,463 (shared/notes/undecided.md)."""
+    (5,2) all come by step 19,463 (docs/HOLDOUTS.md)."""
     from ctmtab.enumerator import plan
     from ctmtab.enumerator.machine import run
     space = Space(1, 5, 2)
@@ -376,7 +376,7 @@ def test_the_command_line_shows_the_certificate(tmp_path):
 
 
 @pytest.mark.parametrize("prefix,what", [
-    ((1, 0), "0EB---_0NA---_------: a diagonal staircase on blank cells (shared/notes/undecided.md)"),
+    ((1, 0), "0EB---_0NA---_------: a diagonal staircase on blank cells (docs/HOLDOUTS.md)"),
     ((3, 0), "1EB---_0NA---_------: the same staircase, leaving 1s behind it"),
 ])
 def test_2d_translated_cycler_proves_a_hand_built_glider(prefix, what):

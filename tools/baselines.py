@@ -9,6 +9,8 @@ from collections import Counter
 
 import numpy as np
 
+from ..tables import keys
+
 CODECS = {
     "zlib": lambda b: zlib.compress(b, 9),
     "lzma": lambda b: lzma.compress(b, preset=9 | lzma.PRESET_EXTREME),
@@ -17,9 +19,8 @@ CODECS = {
 
 
 def _bytes(x) -> bytes:
-    if isinstance(x, str):
-        x = [int(c) for c in x.replace("/", "")]
-    return np.asarray(x, dtype=np.uint8).reshape(-1).tobytes()
+    """One byte per symbol, row-major. Text is key text (tables/keys.py), dotted over 10 symbols."""
+    return keys.as_symbols(keys.data_array(x, None), 256, "the data").reshape(-1).tobytes()
 
 
 def compressed_bits(x, codec: str = "zlib") -> float:

@@ -11,6 +11,7 @@ import warnings
 import numpy as np
 
 from ..errors import CtmtabError
+from ..tables import keys as keytext
 
 # What happens to the cells that do not fill a whole block.
 MODES = ("drop", "wrap", "shrink")
@@ -51,14 +52,15 @@ class BDM:
         self.ctm = table.dense(self.block, missing=missing)  # raises when the table lacks the size
 
     def _data(self, x) -> np.ndarray:
-        if isinstance(x, str):
-            x = [int(c) for c in x] if self.dims == 1 else [[int(c) for c in row] for row in x.split("/")]
-        x = np.asarray(x)
+        """x as uint8 symbols: an array or nested list of integers (bool too) in 0..m-1, or key
+        text as a table key is written ("0110", rows joined by "/"; over 10 symbols dotted cells,
+        "3.11.0"). Floats, even whole ones, NaN, complex, objects and symbols outside the
+        alphabet are refused with one error, never rounded or wrapped into another symbol."""
+        x = keytext.data_array(x, self.m)
         if x.ndim != self.dims or x.size == 0:
-            raise CtmtabError(f"BDM needs a non-empty {self.dims}D array of symbols")
-        if x.min() < 0 or x.max() >= self.m:
-            raise CtmtabError(f"the data holds symbols outside 0..{self.m - 1}")
-        return x if x.dtype == np.uint8 else x.astype(np.uint8)
+            raise CtmtabError(f"BDM needs a non-empty {self.dims}D array of symbols, got {x.ndim} dimensions "
+                              f"and {x.size} cells")
+        return keytext.as_symbols(x, self.m, "the data", f" of this {self.table.space.label} table")
 
     def codes(self, x) -> np.ndarray:
         """Base-m codes of every block the decomposition takes (the remainder of 'shrink' aside)."""

@@ -162,7 +162,7 @@ def _parser() -> argparse.ArgumentParser:
     src.add_argument("--values", metavar="FILE.csv", help="key,value rows")
     p.add_argument("--sizes", help="lengths (1D) or RxC shapes (2D): 5-11 or 3x3,4x4; default all")
     p.add_argument("--worst", type=int, default=10, help="disagreements to list; default 10")
-    p.add_argument("--plot", metavar="FILE.png", help="scatter and per-size correlation")
+    p.add_argument("--plot", metavar="FILE.png", help="scatter and per-size correlation (.png, .pdf or .svg)")
     p.add_argument("--json", action="store_true")
 
     p = sub.add_parser("plot", help="PNG figures of a table: CTM by rank, halting times, mass by size")
@@ -288,6 +288,12 @@ def _extend_base(a):
     elif a.seed in seeds:
         raise CtmtabError(f"{a.extend} already holds samples of seed {a.seed}; choose a new --seed "
                           f"(e.g. {max(seeds) + 1}) or leave it out")
+    # refused before any work: the new stream's first 10^8 samples when no --sample bounds it
+    # (an error or time target); what lies past them is checked when the samples are added
+    new = min(a.sample, 10**8) if a.sample is not None and a.sample > 0 else 10**8
+    from ..enumerator.tally import refuse_overlap
+    refuse_overlap(base.space, [(str(a.extend), seed, n) for seed, n in base.streams]
+                   + [("the new samples", a.seed, new)], "choose another --seed")
     a.dims, a.states, a.symbols, a.max_steps = has["dims"], has["states"], has["symbols"], has["max_steps"]
     if a.deciders == "all":
         a.deciders = ",".join(base.header.get("deciders", [])) or "none"
@@ -305,7 +311,13 @@ def cmd_build(a) -> int:
     from .progress import Bar
 
     sampled = a.sample is not None or bool(a.until) or a.extend is not None
+    seed_given = a.seed is not None
     base = _extend_base(a) if a.extend else None
+    if base is not None and not seed_given and a.seed >= 1 << 63:
+        seeds = {s for s, _ in base.streams}
+        free = next(k for k in range(len(seeds) + 1) if k not in seeds)
+        raise CtmtabError(f"{a.extend} holds samples of seed 2^63 - 1, the largest, so no seed follows its "
+                          f"seeds; give an unused lower one, e.g. --seed {free}")
     prior = None if base is None else base.to_tally()  # converted once: the target and the sum use it
     for name, value in SPACE_DEFAULTS.items():
         if getattr(a, name) is None:
@@ -340,6 +352,11 @@ def cmd_build(a) -> int:
         raise CtmtabError(f"cannot write {output}: its folder does not exist")
     if Path(output).is_dir():  # refused now, not after the build
         raise CtmtabError(f"cannot write {output}: it is a folder; give a file name")
+    if a.scheduler is not None and not a.scheduler.strip():
+        raise CtmtabError("--scheduler is empty; give the Dask scheduler's address, e.g. tcp://host:8786, "
+                          "or leave it out to use local workers")
+    if a.workers is not None and a.workers < 1:
+        raise CtmtabError(f"--workers must be 1 or more, got {a.workers}")
     if a.holdouts is not None and sampled:
         raise CtmtabError("--holdouts lists the undecided nodes of an exhaustive build; drop --sample")
     if a.holdouts is not None and Path(a.holdouts).is_dir():
@@ -357,7 +374,7 @@ def cmd_build(a) -> int:
             from ..enumerator import sample
             tally = sample(space, cap, a.sample, seed=seed, deciders=deciders, workers=workers,
                            scheduler=a.scheduler, until=_until(a.until), prior=prior, spool=spool,
-                           on_progress=bar)
+                           on_progress=bar, budget_hours=a.budget_hours)
         else:
             tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, workers=workers,
                           scheduler=a.scheduler, shard=shard, spool=spool, budget_hours=a.budget_hours,
@@ -394,8 +411,14 @@ def cmd_build(a) -> int:
         if Path(spool).is_dir():
             exc.hint = f"the finished units are kept in {spool}; fix this and run the same command again"
         raise
-    from ..enumerator.spool import Spool
-    Spool.discard(spool)
+    unused, others = tally.spool_clean() if getattr(tally, "spool_clean", None) else (0, [])
+    if unused or others:  # even with -q: a folder left behind is worth a line
+        what = [f"{unused} finished unit(s) this build did not use"] if unused else []
+        if others:
+            what.append(f"{len(others)} file(s) it did not write ({', '.join(map(repr, others[:3]))}"
+                        + (", ..." if len(others) > 3 else "") + ")")
+        print(f"ctmtab build: note: {_printable(spool)} was kept: it holds {' and '.join(what)}; remove it "
+              "when no build needs them", file=sys.stderr)
     if not a.quiet:
         part = f" shard {shard[0]}/{shard[1]}," if shard else ""
         again = f", {tally.resumed} units resumed from {spool}" if tally.resumed else ""
@@ -410,6 +433,7 @@ def cmd_build(a) -> int:
             added = (f"; the table now holds {table.header['sample']['size']:,} samples, {table.distinct:,} outputs, "
                      f"undecided {_percent(table.undecided / table.header['sample']['size'])}")
         left = ("exact (every run left at the cap proven by the step bound)" if tally.step_bound
+                else "exact (every run decided, no step bound used)" if not tally.undecided and not sampled
                 else f"undecided {_percent(tally.undecided / tally.weight)}")
         print(f"{space.label} cap {cap}:{part} {tally.weight:,} {what}, {tally.distinct():,} outputs, "
               f"{left}{stop}{added}, {time.perf_counter() - t0:.2f} s{again} "
@@ -516,6 +540,9 @@ def _certificate_lines(t) -> list:
         bound = cert.step_bound
         out.append(f"  exact      every run left at the cap is proven non-halting by the step bound "
                    f"S = {bound['steps']:,} ({bound['source']}): intervals are points")
+    elif t.exact:
+        out.append("  exact      every run halted or was proven non-halting by the proofs below, no step "
+                   "bound used: intervals are points")
     else:
         out.append(f"  undecided  {cert.nodes:,} tree nodes remain (list them with build --holdouts)")
     if cert.settle is not None:
@@ -544,8 +571,9 @@ def cmd_lookup(a) -> int:
     t = load(a.table)
     t.min_seen = a.min_seen
     rows, rare = [], []
-    for key in a.keys:
-        shape = t._parse_key(key)[0]
+    for typed in a.keys:
+        shape, cells = t.parse_key(typed)
+        key = t.key_text(shape, cells)  # the one spelling, as export writes it
         if t.dropped(shape):  # cut from the table: a bound, never a value
             rows.append({"key": key, "table": t.source, "dropped": True, "count": None, "probability": None, "ctm": None,
                          "ctm_low": t.dropped_bound(shape), "ctm_high": math.inf})
@@ -567,7 +595,9 @@ def cmd_lookup(a) -> int:
         _emit(rows, True, "")
     else:
         sampled = t.mode == "sampled"
-        kind = "95% interval (sampled)" if sampled else ("exact (step bound)" if t.exact else "certified interval")
+        kind = "95% interval (sampled)" if sampled else {"step-bound": "exact (step bound)",
+                                                          "proofs": "exact (every run decided)"}.get(
+            t.exact_by, "certified interval")
         print(f"{'key':<20} {'count':>22} {'probability':>12}" + (f" {'std error':>10}" if sampled else "")
               + f" {'CTM bits':>10}  {kind}")
         for r in rows:
@@ -594,9 +624,9 @@ def cmd_verify(a) -> int:
 
     report, worst = [], 0
     for name in a.tables:
-        code = 0
+        code, notes = 0, []
         try:
-            found = problems(load(name))
+            found = problems(load(name), notes)
             code = 1 if found else 0
         except NotATableError as exc:  # missing, empty, special or another kind of file: unreadable
             found, code = [str(exc)], 2
@@ -605,9 +635,11 @@ def cmd_verify(a) -> int:
         except OSError as exc:
             found, code = [f"{exc.strerror}: {exc.filename}" if exc.strerror and exc.filename else str(exc)], 2
         worst = max(worst, code)
-        report.append({"table": name, "ok": not found, "problems": found})
+        report.append({"table": name, "ok": not found, "problems": found, "not_checked": notes})
         if not a.json:
             print(_printable(f"{name}: ok" if not found else f"{name}: FAILED\n" + "\n".join(f"  {p}" for p in found)))
+            for note in notes:
+                print(_printable(f"  not checked: {note}"))
     if a.json:
         _emit(report, True, "")
     return worst
@@ -699,6 +731,8 @@ def cmd_validate(a) -> int:
         raise CtmtabError(f"--worst {a.worst} is negative; give 0 or more")
     if a.plot:
         _not_an_input(a.plot, [a.table] + ([a.values] if a.values else []), "--plot", "validated")
+        from .plots import figure_format
+        figure_format(a.plot)  # before any work: a figure it cannot write fails fast
     est = resolve(a.estimator) if a.estimator else None  # before the load: bad input fails fast
     vals = values_from_csv(a.values) if a.values else None
     t = load(a.table)
@@ -713,11 +747,18 @@ def cmd_validate(a) -> int:
         _emit(rep.to_dict(), True, "")
         return 0
     print(f"{rep.scored:,} of {rep.keys:,} keys scored ({rep.coverage:.1%})")
-    print(f"Spearman {rep.spearman:+.4f}   Kendall {rep.kendall:+.4f}   "
-          f"mean absolute error after a linear fit {rep.mae_linear:.3f} bits")
+    if "all" in rep.undefined:  # NaN in words: no rank correlation exists here
+        print(f"Spearman and Kendall undefined ({rep.undefined['all']})   "
+              f"mean absolute error after a linear fit {rep.mae_linear:.3f} bits")
+    else:
+        print(f"Spearman {rep.spearman:+.4f}   Kendall {rep.kendall:+.4f}   "
+              f"mean absolute error after a linear fit {rep.mae_linear:.3f} bits")
     print(f"{'size':>6} {'keys':>7} {'Spearman':>9} {'Kendall':>9}")
     for s, r in rep.by_size.items():
-        print(f"{s:>6} {r['keys']:>7} {r['spearman']:>+9.3f} {r['kendall']:>+9.3f}")
+        if s in rep.undefined:
+            print(f"{s:>6} {r['keys']:>7} {'undefined':>9} ({rep.undefined[s]} at this size)")
+        else:
+            print(f"{s:>6} {r['keys']:>7} {r['spearman']:>+9.3f} {r['kendall']:>+9.3f}")
     print("worst disagreements (exact CTM vs the fitted estimate):")
     for w in rep.worst:
         print(f"  {w['key']:>16}  exact {w['exact']:8.3f}  fitted {w['fitted']:8.3f}")

@@ -1,10 +1,12 @@
-"""PNG figures of a table and of a validation report (matplotlib, no display needed)."""
+"""Figures of a table (PNG) and of a validation report (PNG, PDF or SVG), by matplotlib, no display needed."""
 from __future__ import annotations
 
 import math
 from pathlib import Path
 
 import numpy as np
+
+from ..errors import CtmtabError
 
 
 def _plt():
@@ -51,8 +53,28 @@ def plot_table(table, folder) -> list[Path]:
     return out
 
 
+FIGURE_FORMATS = ("png", "pdf", "svg")
+
+
+def figure_format(path) -> str:
+    """The format a figure's file name asks for by its extension: png, pdf or svg. Any other is
+    refused, since matplotlib would write a PNG under any name."""
+    suffix = Path(path).suffix
+    if suffix.lower().lstrip(".") not in FIGURE_FORMATS:
+        named = f"its extension {suffix!r}" if suffix else "it has no extension, which"
+        raise CtmtabError(f"cannot write a figure to {path}: {named} names no format written here; "
+                          "end the name in .png, .pdf or .svg")
+    return suffix.lower().lstrip(".")
+
+
+def _corr_text(value: float) -> str:
+    return "undefined" if math.isnan(value) else f"{value:.3f}"
+
+
 def plot_report(report, path, title: str = "") -> Path:
-    """Scatter of exact against estimated, and the rank correlation per size."""
+    """Scatter of exact against estimated, and the rank correlation per size. The format
+    follows the file name: .png, .pdf or .svg."""
+    kind = figure_format(path)
     plt = _plt()
     exact, est = report.pairs
     fig, (a, b) = plt.subplots(1, 2, figsize=(11, 4.5))
@@ -62,23 +84,23 @@ def plot_report(report, path, title: str = "") -> Path:
         a.plot(xs, report.slope * xs + report.intercept, color="red", lw=1, label="linear fit")
         a.legend()
     a.set(xlabel="estimate", ylabel="exact CTM (bits)",
-          title=f"{title} Spearman {report.spearman:.3f}, Kendall {report.kendall:.3f}")
+          title=f"{title} Spearman {_corr_text(report.spearman)}, Kendall {_corr_text(report.kendall)}")
     names = list(report.by_size)
     b.bar(range(len(names)), [report.by_size[n]["spearman"] for n in names])
     b.set_xticks(range(len(names)), names, rotation=90 if len(names) > 12 else 0)
     b.set(xlabel="key size", ylabel="Spearman", title="rank correlation per size", ylim=(-1, 1))
-    return _save(fig, Path(path))
+    return _save(fig, Path(path), kind)
 
 
-def _save(fig, path: Path) -> Path:
+def _save(fig, path: Path, kind: str = "png") -> Path:
     import io
 
     from ..fsutil import write_atomic
 
     fig.tight_layout()
     buf = io.BytesIO()
-    fig.savefig(buf, dpi=110, format="png")
-    write_atomic(path, buf.getvalue(), durable=False)  # a killed plot leaves no half PNG
+    fig.savefig(buf, dpi=110, format=kind)
+    write_atomic(path, buf.getvalue(), durable=False)  # a killed plot leaves no half figure
     import matplotlib.pyplot as plt
 
     plt.close(fig)

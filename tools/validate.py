@@ -9,6 +9,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import CtmtabError
+from ..tables import keys
 from .baselines import CODECS, block_entropy, compressed_bits
 
 BUILTINS = ("zlib", "lzma", "bz2", "entropy")
@@ -58,6 +59,9 @@ def values_from_csv(path) -> dict:
                     continue
                 if len(row) != 2 or not _is_number(row[1]):
                     raise CtmtabError(f"{path}: line {i + 1} is not key,value; fix the file")
+                if not math.isfinite(float(row[1])):  # a NaN would silently leave the key unscored
+                    raise CtmtabError(f"{path}: line {i + 1} gives the value {row[1].strip()!r}, not a finite "
+                                      "number; give a number, or leave the key out")
                 key = row[0].strip()
                 if key in first:
                     raise CtmtabError(f"{path}: key {key!r} on line {i + 1} was already given on line "
@@ -108,11 +112,40 @@ def shapes_from_text(table, text: str | None):
 
 
 def _is_number(text: str) -> bool:
+    """A plain ASCII decimal number; float() alone also takes "1_0" and other scripts' digits."""
+    if not text.isascii() or "_" in text:
+        return False
     try:
         float(text)
         return True
     except ValueError:
         return False
+
+
+def canonical_values(table, values: dict) -> dict:
+    """values re-keyed by the table's own key text (tables/keys.py), so "0.1.1.0" scores the key
+    0110. Text that is no key (an ambiguous spelling over 10 symbols, a sign, a leading zero), or
+    one key given under two spellings, is refused; a key of other symbols or dimensions than the
+    table's is left out, unscored like any key the table lacks."""
+    m, dims = table.space.symbols, table.space.dims
+    out, spelled = {}, {}
+    for text, value in values.items():
+        try:
+            cells = keys.parse(str(text), m, "the values' key")
+        except keys.OutsideAlphabetError:
+            continue
+        except CtmtabError as exc:
+            raise CtmtabError(f"{exc} (keys are written as export writes them)") from None
+        if dims == 2 and cells.ndim == 1:
+            cells = cells[None, :]
+        if cells.ndim != dims or cells.max() >= m:
+            continue
+        key = keys.write(m, cells.shape, cells.reshape(-1))
+        if key in out:
+            raise CtmtabError(f"the values give the key {key} twice, as {spelled[key]!r} and {text!r}; "
+                              "keep one value per key")
+        out[key], spelled[key] = value, text
+    return out
 
 
 @dataclass
@@ -128,6 +161,7 @@ class Report:
     worst: list = field(default_factory=list)
     pairs: tuple = (None, None)  # exact, estimated arrays (for plots)
     rare: int = 0  # sampled tables: keys scored that were seen in fewer than table.min_seen samples
+    undefined: dict = field(default_factory=dict)  # "all" or a size -> why its correlations are NaN
 
     @property
     def coverage(self) -> float:
@@ -141,11 +175,16 @@ class Report:
 
 
 def _corr(exact: np.ndarray, est: np.ndarray) -> tuple:
+    """(Spearman, Kendall, None), or (NaN, NaN, why in words) where no rank correlation exists."""
     from scipy import stats
 
-    if len(exact) < 2 or np.ptp(exact) == 0 or np.ptp(est) == 0:
-        return math.nan, math.nan
-    return float(stats.spearmanr(exact, est).statistic), float(stats.kendalltau(exact, est).statistic)
+    if len(exact) < 2:
+        return math.nan, math.nan, "fewer than 2 keys scored"
+    if np.ptp(exact) == 0:
+        return math.nan, math.nan, "every key scored has the same exact CTM"
+    if np.ptp(est) == 0:
+        return math.nan, math.nan, "the estimator is constant"
+    return float(stats.spearmanr(exact, est).statistic), float(stats.kendalltau(exact, est).statistic), None
 
 
 def validate(table, estimator=None, values: dict | None = None, sizes=None, worst: int = 10) -> Report:
@@ -153,6 +192,8 @@ def validate(table, estimator=None, values: dict | None = None, sizes=None, wors
     estimator (a callable on the key text) or with given values, against the exact CTM."""
     if (estimator is None) == (values is None):
         raise CtmtabError("give an estimator or a values file, not both")
+    if values is not None:
+        values = canonical_values(table, values)
     shapes = table.shapes if sizes is None else [(s,) if isinstance(s, int) else tuple(s) for s in sizes]
     keys, exact, est, size = [], [], [], []
     rare = 0
@@ -188,7 +229,8 @@ def validate(table, estimator=None, values: dict | None = None, sizes=None, wors
                f"{keys[0]!r})" if values is not None else "the estimator gave NaN or inf for every one")
         raise CtmtabError(f"none of the {len(keys):,} keys was scored: {why}")
     e, v = exact[ok], est[ok]
-    rho, tau = _corr(e, v)
+    rho, tau, why = _corr(e, v)
+    undefined = {} if why is None else {"all": why}
     if ok.sum() >= 2 and np.ptp(v) > 0:
         slope, intercept = np.polyfit(v, e, 1)
     else:
@@ -199,11 +241,13 @@ def validate(table, estimator=None, values: dict | None = None, sizes=None, wors
     sizes_arr = np.array(size)
     for s in dict.fromkeys(size):
         sel = (sizes_arr == s) & ok
-        r, t = _corr(exact[sel], est[sel])
+        r, t, why = _corr(exact[sel], est[sel])
+        if why is not None:
+            undefined[s] = why
         by_size[s] = {"keys": int((sizes_arr == s).sum()), "scored": int(sel.sum()), "spearman": r, "kendall": t}
     order = np.argsort(-np.abs(resid))[:worst]
     kept = np.array(keys)[ok]
     worst_rows = [{"key": str(kept[i]), "exact": float(e[i]), "estimate": float(v[i]),
                    "fitted": float(slope * v[i] + intercept)} for i in order]
     return Report(len(keys), int(ok.sum()), rho, tau, mae, float(slope), float(intercept),
-                  by_size, worst_rows, (e, v), rare)
+                  by_size, worst_rows, (e, v), rare, undefined)

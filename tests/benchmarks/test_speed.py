@@ -24,7 +24,7 @@ def test_exhaustive_build(benchmark, n, cap):
 def test_symbol_relabelling(benchmark, n, m, cap, relabel):
     """The first-use symbol order against the plain search: the same table, fewer nodes. The
     relabelled case passes no new keyword, so it also times an older checkout's default build
-    (PYTHONPATH pointing at it), the figure README compares with."""
+    (PYTHONPATH pointing at it), for a comparison across versions."""
     kwargs = {"budget_hours": None} if relabel else {"budget_hours": None, "relabel": False}
     tally = benchmark.pedantic(build, args=(Space(1, n, m), cap), kwargs=kwargs,
                                rounds=20 if m == 3 else 2, iterations=1)
