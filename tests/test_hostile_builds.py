@@ -26,6 +26,8 @@ from ctmtab.tables import load
 from ctmtab.tools import cli as cli_mod
 
 SPACE = ["--states", "2", "--max-steps", "6"]  # 1D (2,2) cap 6: 12 units, milliseconds
+# about 50 s of subprocesses, sockets and signals: the CI lane (.ci/run runs it after the quick one)
+pytestmark = pytest.mark.ci_slow
 
 
 def ctm(*args, env=None, timeout=120, **kw):

@@ -74,6 +74,7 @@ def test_every_exported_key_reads_back_as_its_own_count(built, space):
 
 
 @pytest.mark.parametrize("space", SPACES, ids=lambda s: f"{s.dims}d-m{s.symbols}")
+@pytest.mark.ci_slow  # subprocesses, several seconds; the API checks of the same keys run in the quick lane
 def test_the_command_line_lookup_of_every_exported_key(built, space):
     _, t, path = built[space]
     from_csv, _ = _exported(t)
@@ -119,6 +120,7 @@ def test_up_to_ten_symbols_dotted_text_is_the_same_key():
         t.count("01/10")
 
 
+@pytest.mark.ci_slow  # subprocesses, several seconds; the API checks of the same keys run in the quick lane
 def test_validate_reads_values_in_the_one_spelling(built, tmp_path):
     _, t, path = built[Space(1, 2, 13)]
     from_csv, _ = _exported(t)
@@ -215,12 +217,14 @@ def test_validate_plot_refuses_a_format_it_cannot_write(tmp_path, name):
 
 
 @pytest.mark.parametrize("name, magic", [("v.pdf", b"%PDF"), ("v.svg", b"<svg"), ("V.PNG", b"\x89PNG")])
+@pytest.mark.ci_slow  # subprocesses, several seconds; the API checks of the same keys run in the quick lane
 def test_validate_plot_writes_the_format_it_names(tmp_path, name, magic):
     r = ctm("validate", "1d-n4-m2-t107", "--estimator", "zlib", "--sizes", "4-6", "--plot", tmp_path / name)
     assert r.returncode == 0, r.stderr
     assert magic in (tmp_path / name).read_bytes()[:400]  # the file signatures of PDF, SVG and PNG
 
 
+@pytest.mark.ci_slow  # subprocesses, several seconds; the API checks of the same keys run in the quick lane
 def test_undefined_correlations_are_said_in_words(t4, tmp_path):
     keys = [k for k, _ in t4.items()]
     by_len = {k: (1.0 if len(k) == 4 else float(int(k, 2))) for k in keys if len(k) in (1, 4, 5)}

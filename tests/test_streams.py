@@ -109,6 +109,7 @@ def test_places_follow_the_generator_step_by_step():
     assert int(places(np.array([1], dtype=np.uint64))[0]) == 0
 
 
+@pytest.mark.ci_slow  # about 5-10 s of sampling and subprocesses
 def test_the_issue_example_is_refused_and_really_overlaps(tmp_path):
     assert SHIFTED < 1 << 63 and SHIFTED != 1
     assert all(unit_seed(SHIFTED, k) == unit_seed(1, k + 5) for k in range(3))  # the same machines
@@ -156,6 +157,7 @@ def test_a_seed_starting_inside_another_units_draws_is_refused():
                          SPACE.entries, SAMPLE_UNIT) is None
 
 
+@pytest.mark.ci_slow  # about 5-10 s of sampling and subprocesses
 def test_ordinary_seeds_are_disjoint_and_merge():
     streams = [("a", 1, 40 * SAMPLE_UNIT), ("b", 2, 40 * SAMPLE_UNIT), ("c", 2026, 400 * SAMPLE_UNIT)]
     assert first_overlap(streams, SPACE.entries, SAMPLE_UNIT) is None
