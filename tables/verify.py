@@ -39,6 +39,8 @@ def problems(table: Table, notes: list | None = None) -> list[str]:
         out += _streams(t, notes)
     for shape in t.shapes:
         out += [f"shape {shape}: {p}" for p in _closure(t, shape)]
+    for shape in sorted(t.late):  # the halts past the cap come in whole symmetry classes too
+        out += [f"halts past the cap, shape {shape}: {p}" for p in _late_closure(t, shape)]
         if t.mode == "sampled":
             out += [f"shape {shape}: {p}" for p in _moments(t, shape)]
     if t.cut is not None and t.space.dims == 2:  # a shape and its rotation hold the same keys
@@ -173,6 +175,23 @@ def _closure(table: Table, shape: tuple) -> list[str]:
         theirs = np.asarray(other.counts, dtype=object)[np.maximum(pos, 0)]
         bad = np.flatnonzero((pos < 0) | (theirs != counts))
         if len(bad):
+            out.append(f"{len(bad)} keys differ in count from their {name} image, "
+                       f"e.g. {table.key_text(shape, rows[bad[0]])}")
+    return out
+
+
+def _late_closure(table: Table, shape: tuple) -> list[str]:
+    """The run-on's halts (table.late) closed under the same images, count for count (exact: the
+    groups are small, so a dict of rows serves)."""
+    m = table.space.symbols
+    index = {s: {row.tobytes(): int(c) for row, c in zip(g.rows(m), g.counts)} for s, g in table.late.items()}
+    rows = table.late[shape].rows(m)
+    mine = [index[shape][r.tobytes()] for r in rows]
+    out = []
+    for name, img_shape, img in _images(table, shape, rows):
+        theirs = index.get(img_shape, {})
+        bad = [i for i, r in enumerate(np.ascontiguousarray(img)) if theirs.get(r.tobytes()) != mine[i]]
+        if bad:
             out.append(f"{len(bad)} keys differ in count from their {name} image, "
                        f"e.g. {table.key_text(shape, rows[bad[0]])}")
     return out

@@ -220,3 +220,15 @@ def test_a_run_that_repeats_inside_the_settle_size_is_proven():
     assert r["undecided"] == 2 and r["late_proven"] == 2 and r["undecided_by_size"] == {}
     r = _run_on_node(pingpong, 2, 10, 0, deciders=())  # no run-on: it stays undecided
     assert r["undecided_by_size"] == {(1, 2): 2} and r["late_proven"] == 0
+
+
+def test_verify_checks_the_halts_past_the_cap_for_symmetry():
+    t = Table.from_tally(settled(1, 4, 2, 40, 12))
+    assert problems(t) == []
+    shape = min(t.late)
+    g = t.late[shape]
+    g.counts = g.counts.copy()
+    g.counts[0] += 2  # a forged count that keeps the sum consistent needs a matching loss elsewhere
+    g.counts[-1] -= 2
+    found = problems(t)
+    assert found and all("halts past the cap" in p for p in found)
