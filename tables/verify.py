@@ -39,10 +39,10 @@ def problems(table: Table, notes: list | None = None) -> list[str]:
         out += _streams(t, notes)
     for shape in t.shapes:
         out += [f"shape {shape}: {p}" for p in _closure(t, shape)]
-    for shape in sorted(t.late):  # the halts past the cap come in whole symmetry classes too
-        out += [f"halts past the cap, shape {shape}: {p}" for p in _late_closure(t, shape)]
         if t.mode == "sampled":
             out += [f"shape {shape}: {p}" for p in _moments(t, shape)]
+    for shape in sorted(t.late):  # the halts past the cap come in whole symmetry classes too
+        out += [f"halts past the cap, shape {shape}: {p}" for p in _late_closure(t, shape)]
     if t.cut is not None and t.space.dims == 2:  # a shape and its rotation hold the same keys
         for shape, record in t.cut.dropped.items():
             if t.cut.dropped.get(shape[::-1]) != record:

@@ -232,3 +232,27 @@ def test_verify_checks_the_halts_past_the_cap_for_symmetry():
     g.counts[-1] -= 2
     found = problems(t)
     assert found and all("halts past the cap" in p for p in found)
+
+
+def test_the_command_line_builds_shows_and_refuses_run_ons(tmp_path):
+    import json
+    import subprocess
+    import sys
+
+    def ctm(*args):
+        return subprocess.run([sys.executable, "-m", "ctmtab", *map(str, args)], capture_output=True, text=True)
+
+    out = tmp_path / "s.ctmt"
+    r = ctm("build", "--states", 4, "--max-steps", 40, "--settle-size", 12, "-o", out, "-q")
+    assert r.returncode == 0, r.stderr
+    info = ctm("info", out).stdout
+    assert "settled    keys up to size 12" in info
+    rows = json.loads(ctm("lookup", out, "0110", "0" * 13, "--missing", "nan", "--json").stdout)
+    assert rows[0]["settled"] is True and rows[1]["settled"] is False
+    assert "settled" in ctm("lookup", out, "01010101").stdout
+    for bad in (["--settle-size", 41], ["--settle-size", -1], ["--sample", 1000, "--settle-size", 4]):
+        r = ctm("build", "--states", 4, "--max-steps", 40, *bad, "-o", tmp_path / "x.ctmt")
+        assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "Traceback" not in r.stderr
+    # the kept size is the default settle size
+    r = ctm("build", "--states", 3, "--max-steps", 9, "--keep-size", 5, "-o", tmp_path / "k.ctmt", "-q")
+    assert r.returncode == 0 and load(tmp_path / "k.ctmt").settle_size == 5
