@@ -5,8 +5,8 @@ The brute force runs once per space, at the largest cap listed for it, and talli
 each output by its halting step; every smaller cap is read off that one pass."""
 import pytest
 
-from bruteforce import brute_force_1d, brute_force_2d, code_of, up_to
-from conftest import exact_table
+from bruteforce import code_of, up_to
+from conftest import brute_force, exact_table
 
 from ctmtab.enumerator import Space, build
 
@@ -43,8 +43,7 @@ def brute():
 
     def get(dims, n, m):
         if (dims, n, m) not in done:
-            run = brute_force_1d if dims == 1 else brute_force_2d
-            done[dims, n, m] = run(n, m, max(CAPS[dims, n, m]))
+            done[dims, n, m] = brute_force(dims, n, m, max(CAPS[dims, n, m]))
         return done[dims, n, m]
     return get
 
