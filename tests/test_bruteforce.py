@@ -52,7 +52,7 @@ def fast_table(dims, n, m, cap):
     return exact_table(n, m, cap) if dims == 1 else build(Space(2, n, m), cap, budget_hours=None)
 
 
-@pytest.mark.parametrize("dims,n,m,cap", cases())
+@pytest.mark.parametrize("dims,n,m,cap", list(cases()))  # a list: pytest deprecates generators here
 def test_fast_table_equals_brute_force(brute, dims, n, m, cap):
     counts, halts = brute(dims, n, m)
     t = fast_table(dims, n, m, cap)

@@ -481,8 +481,9 @@ def cmd_info(a) -> int:
         + (f", {s['sample']['size']:,} samples, seed {s['sample']['seed']}" if s.get("sample") else ""),
         f"  halting    {t.halting:,}  non-halting {t.non_halting:,}  undecided {t.undecided:,} "
         f"({_percent(s['undecided_fraction'])})",
-        f"  keys       {s['distinct_keys']:,} distinct; complete up to size "
-        f"{max([int(x.split('x')[0]) for x in s['complete_shapes']] or [0]) if t.space.dims == 1 else s['complete_shapes']}",
+        f"  keys       {s['distinct_keys']:,} distinct; "
+        + (f"complete up to size {max([int(x.split('x')[0]) for x in s['complete_shapes']] or [0])}"
+           if t.space.dims == 1 else f"complete at shapes {', '.join(s['complete_shapes']) or 'none'}"),
         f"  CTM        {s['ctm_min']:.4f} to {s['ctm_max']:.4f} bits" + (" (the kept keys)" if t.cut else "") if t.total
         else "  CTM        none: no run halted",
         f"  longest    {s['stats'].get('longest_run', '?')} steps, {s['stats'].get('most_nonblank', '?')} non-blank cells",
@@ -547,9 +548,13 @@ def _certificate_lines(t) -> list:
         out.append(f"  undecided  {cert.nodes:,} tree nodes remain (list them with build --holdouts)")
     if cert.settle is not None:
         st = cert.settle
-        out.append(f"  settled    keys up to size {st['size']} are certified for unbounded time: every node "
-                   f"undecided there was run on past the cap ({st['steps']:,} steps): {st['halting']:,} machines "
-                   f"halted later, {st['proven']:,} repeat forever, the rest outgrew size {st['size']}")
+        if not any(st["nodes"]):
+            out.append(f"  settled    keys up to size {st['size']} are certified for unbounded time: no node "
+                       f"undecided at the cap fitted size {st['size']}")
+        else:
+            out.append(f"  settled    keys up to size {st['size']} are certified for unbounded time: every node "
+                       f"undecided there was run on past the cap ({st['steps']:,} steps): {st['halting']:,} "
+                       f"machines halted later, {st['proven']:,} repeat forever, the rest outgrew size {st['size']}")
     proofs = ", ".join(f"{name} {w:,}" for name, w in cert.proofs.items() if w)
     out.append(f"  proofs     {proofs or 'none'}")
     if cert.proof_nodes is not None:
