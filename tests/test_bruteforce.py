@@ -28,6 +28,9 @@ CAPS = {
 }
 HEAVY = {(1, 2, 3)}  # 11,390,625 machines x 3 blanks x 38 steps: the CI lane (.ci/run)
 
+# one worker runs every brute force (cached in conftest); test_settle.py shares it
+pytestmark = pytest.mark.xdist_group("brute-force")
+
 
 def cases():
     for space, caps in CAPS.items():

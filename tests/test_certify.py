@@ -175,6 +175,7 @@ def test_cps_proofs_checked_by_simulation_on_holdouts():
     assert any(reaches_undefined(mach, 107) for mach in unproved)  # the late halts stay undecided
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_translated_cycler_2d_is_sound_and_strong():
     """2D (3,2) at cap 2000: the 2D translated cycler leaves at most 0.05% of the machines
     undecided, and the counts equal those without it."""

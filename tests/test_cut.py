@@ -18,6 +18,9 @@ from hostile import with_header
 
 pytestmark = pytest.mark.core
 
+# 2D (3,2) at cap 2000 takes about 8 s a build: the slow lane of .ci/run
+TWO_D_CASE = pytest.param(Space(2, 3, 2), 2000, 2, marks=pytest.mark.ci_slow, id="2d-n3-m2-t2000")
+
 
 def cli(*args, cwd=None):
     return subprocess.run([sys.executable, "-m", "ctmtab", *map(str, args)], capture_output=True, text=True,
@@ -119,7 +122,7 @@ def test_cutting_again_only_keeps_fewer_sizes(full32):
         full32.trimmed(0)
 
 
-@pytest.mark.parametrize("space, cap, keep", [(Space(1, 4, 2), 107, 7), (Space(2, 3, 2), 2000, 2)])
+@pytest.mark.parametrize("space, cap, keep", [(Space(1, 4, 2), 107, 7), TWO_D_CASE])
 def test_cut_shards_merge_to_the_whole_cut_build(space, cap, keep):
     # A big build runs as shards cut in the core, each small enough to keep; their merge must be
     # the whole cut build's table key for key, with the dropped weights exact by shape. One
@@ -216,8 +219,7 @@ def test_a_sampled_table_cut_keeps_its_errors_and_reports_dropped_keys():
     assert back.interval("012301")[1] == math.inf
 
 
-@pytest.mark.parametrize("space, cap, keep", [(Space(1, 4, 2), 107, 7), (Space(2, 3, 2), 2000, 2),
-                                              (Space(1, 2, 3), 38, 4)])
+@pytest.mark.parametrize("space, cap, keep", [(Space(1, 4, 2), 107, 7), TWO_D_CASE, (Space(1, 2, 3), 38, 4)])
 def test_a_build_cut_in_the_core_keeps_the_same_keys_and_dropped_weights(space, cap, keep):
     whole = Table.from_tally(build(space, cap))
     core_cut = Table.from_tally(build(space, cap, max_size=keep, workers=2))

@@ -196,6 +196,7 @@ def test_every_core_error_code_has_its_own_class():
     assert r["halting"] + r["non_halting"] + r["undecided"] == 100
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_shipped_exact_five_state_table():
     # arXiv:2509.12337 (verified, REFERENCES.md): S(5) = 47,176,870 steps, the champion leaves
     # 4,098 ones, and the Coq proof's tree normal form has 48,379,894 halting nodes; a cap of at

@@ -151,6 +151,7 @@ def test_validate_command_json_plot_and_module_function(tmp_path):
     assert r.returncode == 2 and "cannot import" in r.stderr and len(r.stderr.splitlines()) == 1
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_plot_and_demo_commands(tmp_path):
     r = ctm("plot", "2d-n3-m2-t2000", "-o", tmp_path)
     assert r.returncode == 0

@@ -169,6 +169,7 @@ def test_pickle_is_never_used():
         assert "pickle" not in text and "allow_pickle=True" not in text, source
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 @pytest.mark.core  # builds with exact_table
 def test_shipped_tables_load_by_name_and_verify():
     from ctmtab.tables import shipped

@@ -184,6 +184,7 @@ def test_cli_extend_in_place_and_refusals(tmp_path):
     assert r.returncode == 2 and "seed 5" in r.stderr and len(r.stderr.strip().splitlines()) == 1
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_error_target_stops_at_the_same_unit_for_any_worker_count():
     target = Target(error=0.05, size=5)
     one = sample(Space(1, 4, 2), 107, 20_000_000, seed=3, until=target)
@@ -199,6 +200,7 @@ def test_error_target_stops_at_the_same_unit_for_any_worker_count():
     assert sample(Space(1, 4, 2), 107, one.samples, seed=3).groups == one.groups
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_an_error_target_counts_the_table_being_extended():
     base = sample(Space(1, 4, 2), 107, 4_000_000, seed=1)
     target = Target(error=0.05, size=5)

@@ -68,6 +68,7 @@ def test_shards_merge_into_the_single_machine_table(single_42):
     assert merged.header["units"]["covered"] == "all"
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_shards_of_33_merge_into_the_single_machine_table():
     single = Table.from_tally(build(Space(1, 3, 3), 12))
     assert body(merge(shard_tables(Space(1, 3, 3), 12, 4))) == body(single)
@@ -165,6 +166,7 @@ def test_spool_of_another_build_is_refused(tmp_path):
     assert r.returncode == 2 and "different build" in r.stderr
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_dask_local_cluster_gives_identical_body(single_42):
     distributed = pytest.importorskip("distributed")
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",

@@ -53,6 +53,7 @@ def test_settled_keys_have_their_busy_beaver_counts(n, m, cap, k, bound):
     assert all(max(s) > k for s in t.undecided_by_size)
 
 
+@pytest.mark.xdist_group("brute-force")  # on the worker that already ran it (conftest)
 def test_settled_counts_equal_the_brute_force():
     # the brute force runs every machine on every blank to S(3) = 21 steps (tests/bruteforce.py;
     # the same pass as test_bruteforce's, once per session)

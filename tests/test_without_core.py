@@ -80,6 +80,7 @@ def test_commands_that_need_the_core_say_so_in_one_line(args, tmp_path):
     assert list(tmp_path.iterdir()) == []  # refused before writing anything
 
 
+@pytest.mark.ci_slow  # a second pytest run in a subprocess: the slow lane of .ci/run
 @pytest.mark.parametrize("files", [
     ["test_format.py", "test_reader.py", "test_hostile_reads.py"],
     pytest.param(["test_fuzz.py"], marks=pytest.mark.ci_slow),  # about 20 s of mutations
@@ -87,7 +88,7 @@ def test_commands_that_need_the_core_say_so_in_one_line(args, tmp_path):
 def test_reader_format_and_fuzz_tests_pass_without_core(files):
     # tests that build a table are marked `core` and left out; every other one must pass
     r = without_core("import pytest; sys.exit(pytest.main(sys.argv[1:]))",
-                     "-q", "-p", "no:cacheprovider", "-m", "not slow and not ci_slow and not core",
+                     "-q", "-p", "no:cacheprovider", "-n", "0", "-m", "not slow and not ci_slow and not core",
                      *[str(TESTS / f) for f in files], cwd=TESTS.parent)
     tail = r.stdout.strip().splitlines()[-1] if r.stdout.strip() else r.stderr
     assert r.returncode == 0, r.stdout[-3000:] + r.stderr[-2000:]

@@ -1,5 +1,5 @@
 """Speed figures for README.md. Measure with:
-    python3 -m pytest tests/benchmarks --benchmark-enable --benchmark-columns=min,mean,rounds
+    python3 -m pytest tests/benchmarks -n 0 --benchmark-enable --benchmark-columns=min,mean,rounds
 In the normal test run each benchmark runs once, as a test."""
 import numpy as np
 import pytest

@@ -1,5 +1,5 @@
 """The (5,2) builds: too slow for CI, run with
-    python3 -m pytest tests/benchmarks/test_speed_52.py -m slow --benchmark-enable -s
+    python3 -m pytest tests/benchmarks/test_speed_52.py -m slow -n 0 --benchmark-enable -s
 Each records its wall time, the undecided weight and the checks of the published table."""
 import pytest
 
