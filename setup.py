@@ -27,10 +27,11 @@ setup(
     package_dir={
         "ctmtab": ".",
         "ctmtab.enumerator": "enumerator",
+        "ctmtab.model": "model",
         "ctmtab.tables": "tables",
         "ctmtab.tools": "tools",
     },
-    packages=["ctmtab", "ctmtab.enumerator", "ctmtab.tables", "ctmtab.tools"],
+    packages=["ctmtab", "ctmtab.enumerator", "ctmtab.model", "ctmtab.tables", "ctmtab.tools"],
     package_data={"ctmtab.tables": ["*.ctmt"]},
     cmdclass={"build_py": BuildPy},
     ext_modules=cythonize([core], language_level=3),

@@ -1,22 +1,11 @@
-"""Decider names and their bits in the C core (pure Python, so readers need no core).
-
-None of them may change a count: each proves non-halting for every completion of
-a partial machine, an undefined entry counting as a possible halt. The core's
-per-decider proven weights follow this order."""
+"""The search's options beside the decider bits (the names and bits: model/deciders.py)."""
 from __future__ import annotations
 
-DECIDERS = {
-    "full-table": 1,         # every entry defined and none is HALT
-    "escapee": 2,            # on fresh blank cells a chain of entries runs off the same way
-    "cycler": 4,             # a configuration repeats exactly
-    "translated-cycler": 8,  # a record configuration repeats shifted (1D and 2D)
-    "ngram-cps": 16,         # n-gram closed position set (1D; 2D runs still in one row at the cap)
-}
-ALL_DECIDERS = tuple(DECIDERS)
+from ..model.deciders import ALL_DECIDERS, DECIDERS, STEP_BOUND  # noqa: F401  (the search's callers)
+
 # Not a decider but a search option beside their bits (CTM_SEARCH_RELABEL): exhaustive searches
 # with m >= 3 symbols write the non-blank ones in first-use order, about (m-1)! times fewer nodes.
 SEARCH_RELABEL = 256
-STEP_BOUND = "step-bound"    # not a decider: the proven busy-beaver bound (enumerator/bounds.py)
 # Exhaustive builds run the CPS only from this cap on: it is tried once per node, at step 128
 # (enumerator/_core.pyx CPS_AT) or at the cap, and shorter caps leave mostly runs cut short.
 CPS_MIN_CAP = 128

@@ -12,10 +12,14 @@ import numpy as np
 from ..errors import InvariantError, SpaceError, TooLargeError
 from . import executors
 from .native import core as _core
-from .space import Space, check_cap
+from ..model.space import Space, check_cap
 from .spool import Spool, kept
-from .tally import Partial, Tally, images_per_sample, relative_sample_errors, sample_sums, size_of
-from .bounds import bound_reached
+from ..model.stats import relative_sample_errors
+from ..model.streams import SAMPLE_UNIT
+from ..model.symmetry import images_per_sample, size_of
+from ..model.tally import Tally
+from .accumulate import Partial, sample_sums, tally_from_partial, tally_from_sample
+from ..model.bounds import bound_reached
 from .units import Plan, default_depth, make_plan, unit_settle_ok, unit_weight_ok
 from .deciders import ALL_DECIDERS, CPS_MIN_CAP, DECIDERS, SEARCH_RELABEL
 
@@ -264,7 +268,7 @@ def build(
             if store:
                 store.save(index, result)
             accept(index, result)
-    tally = Tally.from_partial(
+    tally = tally_from_partial(
         space, cap, part, deciders=tuple(deciders), units=p.count,
         covered=None if shard is None else chosen, weight=weight_total,
         plan_ident=p.ident, depth=p.depth, shard=shard, relabelled=bool(p.bits & SEARCH_RELABEL),
@@ -331,9 +335,6 @@ def check_settle(space: Space, cap: int, settle_size, max_size: int | None) -> i
                             "per run-on, so proving a repetition could take as many steps; use a smaller "
                             "--settle-size")
     return None if bound_reached(space, cap) is not None else settle_size
-
-
-SAMPLE_UNIT = 25_000  # samples per work unit: the result never depends on the worker count
 
 
 def _mix64(z: int) -> int:
@@ -491,7 +492,7 @@ def sample(space: Space, cap: int, samples: int | None, *, seed: int = 1, decide
     if done == 0:
         raise SpaceError(f"the time budget ran out before the first {SAMPLE_UNIT:,} samples finished; "
                          "give --until more time")
-    tally = Tally.from_sample(space, cap, part, drawn, seed, deciders=tuple(deciders), units=done)
+    tally = tally_from_sample(space, cap, part, drawn, seed, deciders=tuple(deciders), units=done)
     tally.seconds = time.perf_counter() - t0
     tally.resumed = resumed
     tally.spool_damaged = store.damaged if store else 0

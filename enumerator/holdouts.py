@@ -9,7 +9,7 @@ its mirror (2D: rotated and flipped) images included; the step is where it was
 given up; the size is the span reached (1D) or the box ROWSxCOLS (2D)."""
 from __future__ import annotations
 
-from .space import Space
+from ..model.space import Space
 
 MOVES = {1: "RL", 2: "NESW"}
 HEADER = "# machine weight step size\n"

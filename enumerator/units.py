@@ -11,18 +11,10 @@ import msgpack
 from ..errors import SpaceError
 from .deciders import SEARCH_RELABEL
 from .native import core as _core
-from .space import Space
+from ..model.space import Space, default_depth  # noqa: F401  (its callers)
 
 # Index 0 is the top of the tree (everything above the cut); 1..N are subtrees.
 TOP = 0
-
-
-def default_depth(space: Space) -> int:
-    """Cut depth used when none is given: a function of the space only, so that
-    every worker count, shard split and resume sees the same units. With 3 or more symbols the
-    first-use symbol order makes each unit several times larger, so one level less keeps the
-    per-unit overhead small (1D (2,3), (2,4), (3,3) all build faster at 3 than at 4)."""
-    return max(0, min(4 if space.symbols == 2 else 3, space.entries - 1))
 
 
 @dataclass(frozen=True)

@@ -14,9 +14,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..enumerator.bounds import step_bound
-from ..enumerator.deciders import STEP_BOUND
-from ..enumerator.space import Space
+from ..model.bounds import step_bound
+from ..model.deciders import STEP_BOUND
+from ..model.space import Space
 from ..errors import InconsistentTableError
 
 MAX_SIZES = 1 << 20  # size records in one header: far above any cap's spans

@@ -14,13 +14,14 @@ from pathlib import Path
 import msgpack
 import numpy as np
 
-from ..enumerator.space import MAX_CAP, MAX_ENTRIES
-from ..enumerator.tally import FULL_RELABELLING_MAX
+from ..model.space import MAX_CAP, MAX_ENTRIES
+from ..model.symmetry import FULL_RELABELLING_MAX
 from ..errors import InconsistentTableError, NotATableError, SizeLimitError, TableError
 from . import format as fmt
 from .arrays import U64, Hist, decode_counts, limbs_needed
 from . import certify
-from .table import SHIPPED, Group, Table
+from .group import Group
+from .table import SHIPPED, Table
 
 SUFFIX = ".ctmt"
 MAX_DIGITS = 400  # a total as a decimal string: the largest space (64 entries) has under 200 digits
@@ -288,7 +289,7 @@ def body_bounds(header: dict) -> tuple[int, int]:
     allow. Keys take 8 (codes) or one per cell (symbols); no count exceeds the counts' sum
     (blanks or images times halting), no moment that times the images, no histogram entry the
     halting total; msgpack adds at most a few dozen bytes per group."""
-    m, dims = header["space"]["symbols"], header["space"]["dims"]
+    m = header["space"]["symbols"]
     halting = int(header["totals"]["halting"])
     per_run = header["sample"]["images_per_sample"] if header["mode"] == "sampled" else m
     count_limbs = limbs_needed([per_run * halting])

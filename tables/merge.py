@@ -3,7 +3,8 @@ from __future__ import annotations
 
 import dataclasses
 
-from ..enumerator.tally import combine_samples, images_per_sample, summed
+from ..model.symmetry import images_per_sample
+from ..model.tally import combine_samples, summed
 from ..errors import MergeError
 from .table import Table
 from .verify import shard_weight_problems

@@ -2,76 +2,26 @@
 dense views for estimators, verification, merging and export."""
 from __future__ import annotations
 
-import datetime
 import math
-import operator
-import os
 import warnings
-from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from .._version import __version__
-from ..enumerator.space import Space
-from ..enumerator.tally import relabelling, relative_sample_errors, sample_errors, size_of
+from ..model.space import Space
+from ..model.symmetry import size_of
 from ..errors import InconsistentTableError, MissingKeyError, RareKeyWarning, SpaceError, TableError
-from . import certify
+from . import certify, convert, dense, report, sampled, write
+from .group import Group
 from . import cut as sizecut
 from .cut import DroppedKeyError
-from . import format as fmt
+from .dense import DENSE_LOOKUP
 from . import keys as keytext
-from .arrays import Hist, codes_of, encode_counts, encode_hist, exact_sum, fits_code64, symbols_of
+from .arrays import Hist, codes_of, exact_sum
 
-FORMALISM = "busy-beaver: entries MOVE(write, direction, next) or HALT(write); every transition is a step"
 MISSING_POLICIES = ("raise", "nan", "fallback")
 DEFAULT_MIN_SEEN = 10  # sampled keys seen fewer times than this draw a RareKeyWarning
-MAX_DENSE = 1 << 26  # keys in one dense view: 512 MiB of float64
-DENSE_LOOKUP = 1 << 20  # lookup() indexes a dense count array up to this many keys (8 MiB), else searches
-CACHE_BYTES = 256 << 20  # dense arrays kept across calls, at most; beyond, each call builds its own
 SHIPPED = Path(__file__).parent
-
-
-@dataclass
-class Group:
-    """All keys of one shape: sorted base-m codes (or symbol rows) and exact counts."""
-
-    shape: tuple
-    codes: np.ndarray | None   # uint64, sorted, when m^size fits 64 bits
-    symbols: np.ndarray | None  # N x size uint8 otherwise, sorted
-    counts: np.ndarray          # uint64, or object ints when wider
-    moments: np.ndarray | None = None  # sampled tables: per-key sums of squared image counts
-
-    def __len__(self):
-        return len(self.counts)
-
-    def rows(self, m: int) -> np.ndarray:
-        """Every key as a row of symbols."""
-        if self.symbols is not None:
-            return self.symbols
-        return symbols_of(self.codes, m, math.prod(self.shape))
-
-
-def _group(shape: tuple, entries: dict, m: int, moments: dict | None = None) -> Group:
-    """One shape's keys (symbol bytes -> exact count), sorted by code, or by row where the codes
-    would not fit 64 bits; counts (and moments) as uint64 where they fit."""
-    keys = list(entries)
-    counts = np.asarray(list(entries.values()), dtype=object)
-    size = math.prod(shape)
-    rows = np.frombuffer(b"".join(keys), dtype=np.uint8).reshape(len(keys), size)
-    if fits_code64(m, size):
-        codes = codes_of(rows, m)
-        order = np.argsort(codes, kind="stable")
-        g = Group(shape, codes[order], None, counts[order])
-    else:
-        order = np.lexsort(rows.T[::-1])
-        g = Group(shape, None, rows[order], counts[order])
-    if moments is not None:
-        mom = np.asarray([moments[k] for k in keys], dtype=object)[order]
-        g.moments = mom.astype(np.uint64) if max(mom, default=0) < 1 << 64 else mom
-    if max(g.counts, default=0) < 1 << 64:
-        g.counts = g.counts.astype(np.uint64)
-    return g
 
 
 def _int_total(header: dict, name: str) -> int:
@@ -79,18 +29,6 @@ def _int_total(header: dict, name: str) -> int:
     if not isinstance(value, str) or not value.isdigit():
         raise InconsistentTableError(f"the header total {name!r} is missing or not a whole number")
     return int(value)
-
-
-def symmetries(space: Space, mode: str, relabelled: bool = False) -> list[str]:
-    """The symmetries behind the counts, as the header lists them. Exhaustive builds search one
-    machine per class and weight it: mirror (1D) or dihedral (2D), blank swaps, state relabelling,
-    and with 3 or more symbols the first-use order of the non-blank symbols (relabelled).
-    Sampled builds draw plain machines and add each output's images: mirror or dihedral, and the
-    symbol maps of tally.sample_perms (all m! permutations, or the m blank swaps)."""
-    shape = "mirror" if space.dims == 1 else "dihedral"
-    if mode == "sampled":
-        return [shape, "symbol-permutation" if relabelling(space.symbols) == "all" else "blank-swap"]
-    return [shape, "blank-swap", "state-relabelling"] + (["symbol-relabelling"] if relabelled else [])
 
 
 class Table:
@@ -203,69 +141,6 @@ class Table:
         return f"<ctmtab Table {self.space.label} cap {self.cap}, {self.distinct} keys>"
 
     # ---- building and saving
-    @classmethod
-    def from_tally(cls, tally, *, command: str = "", notes: str = "", builder: str | None = None) -> "Table":
-        m = tally.space.symbols
-        groups = {shape: _group(shape, entries, m, None if tally.moments is None else tally.moments[shape])
-                  for shape, entries in tally.groups.items()}
-        late = {shape: _group(shape, entries, m) for shape, entries in tally.late_groups.items()}
-        header = {
-            "kind": "ctmtab-table",
-            "space": tally.space.to_dict(),
-            "formalism": FORMALISM,
-            "cap": tally.cap,
-            "blanks": list(range(tally.space.symbols)),
-            "mode": tally.mode,
-            "totals": {
-                "space_size": str(tally.space.size),
-                "halting": str(tally.halting),
-                "non_halting": str(tally.non_halting),
-                "undecided": str(tally.undecided),
-            },
-            "invariant": "halting + non_halting + undecided = space_size; counts sum to blanks x halting",
-            "symmetries": symmetries(tally.space, tally.mode, tally.relabelled),
-            "deciders": list(tally.deciders),
-            "stats": {
-                "halting_nodes": tally.halting_nodes,
-                "longest_run": tally.longest_run,
-                "most_nonblank": tally.most_nonblank,
-                "steps_simulated": tally.steps,
-            },
-            "units": {
-                "count": tally.units,
-                "depth": tally.depth,
-                "plan": tally.plan_ident,
-                "covered": "all" if tally.covered is None else list(tally.covered),
-                "weight": str(tally.weight),
-                "shard": None if tally.shard is None else list(tally.shard),
-            },
-            "generator": {"name": "ctmtab", "version": __version__},
-            "build": {
-                "command": command,
-                "seconds": round(tally.seconds, 3),
-                "created": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
-                "by": builder if builder is not None else _whoami(),
-            },
-            "notes": notes,
-        }
-        if tally.mode == "sampled":
-            streams = tally.streams or [(tally.seed, tally.samples)]
-            header["sample"] = {"size": tally.samples, "seed": streams[0][0], "halting_samples": tally.halting,
-                                "images_per_sample": tally.images, "streams": [list(s) for s in streams],
-                                "relabelling": relabelling(tally.space.symbols)}
-            if tally.until:
-                header["build"]["until"] = tally.until
-            header["invariant"] = ("halting + non_halting + undecided = sample size (totals count samples); "
-                                   "counts sum to images_per_sample x halting")
-        certificate = certify.header_field(tally)
-        if certificate is not None:
-            header["certificate"] = certificate
-        cut = sizecut.of_tally(tally)
-        if cut is not None:
-            header["cut"] = cut.header_field()
-        table = cls(header, groups, list(tally.steps_hist), list(tally.length_hist), late=late)
-        header["keys"] = table._key_summary()
-        return table
 
     def trimmed(self, max_size: int) -> "Table":
         """This table keeping only the keys whose longer side is at most max_size, with an exact
@@ -291,87 +166,8 @@ class Table:
         table.min_seen = self.min_seen
         return table
 
-    def to_tally(self):
-        """The exact tally behind this table (for merging)."""
-        from ..enumerator.tally import Tally
-
-        if self.cut is not None and self.mode == "sampled":  # a dropped key's moments are gone
-            raise TableError(f"{self.source} is cut at size {self.cut.max_size}, so its dropped keys cannot be "
-                             "added to another table's; merge or extend the uncut tables, then cut the result")
-        m = self.space.symbols
-        groups = {s: {row.tobytes(): int(c) for row, c in zip(self.groups[s].rows(m), self.groups[s].counts)}
-                  for s in self.shapes}
-        units, stats = self.header.get("units", {}), self.header.get("stats", {})
-        covered = units.get("covered")
-        shard = units.get("shard")
-        sampled = {}
-        if self.mode == "sampled":
-            sample = self.header["sample"]
-            sampled = dict(
-                mode="sampled", samples=sample["size"], seed=self.streams[0][0], streams=list(self.streams),
-                moments={s: {row.tobytes(): int(c) for row, c in zip(self.groups[s].rows(m), self.groups[s].moments)}
-                         for s in self.shapes},
-                seconds=float(self.header.get("build", {}).get("seconds", 0)))
-        return Tally(
-            space=self.space, cap=self.cap, groups=groups, halting=self.halting,
-            non_halting=self.non_halting, undecided=self.undecided,
-            halting_nodes=stats.get("halting_nodes", 0), steps_hist=self.hist_steps.tolist(),
-            length_hist=self.hist_len.tolist(), longest_run=stats.get("longest_run", 0),
-            most_nonblank=stats.get("most_nonblank", 0), steps=stats.get("steps_simulated", 0),
-            deciders=tuple(self.header.get("deciders", [])), units=units.get("count", 1),
-            covered=None if covered == "all" else list(covered),
-            weight=int(units.get("weight", self.space_size)), plan_ident=units.get("plan", ""),
-            depth=units.get("depth", 0), shard=None if shard is None else tuple(shard), **sampled,
-            relabelled="symbol-relabelling" in self.header.get("symmetries", []),
-            max_size=None if self.cut is None else self.cut.max_size,
-            dropped={} if self.cut is None else dict(self.cut.dropped),
-            **self._certificate_fields(),
-        )
-
-    def _certificate_fields(self) -> dict:
-        cert = self.certificate
-        if cert is None:
-            return {}
-        bound = cert.step_bound
-        m = self.space.symbols
-        return dict(proofs=dict(cert.proofs), undecided_by_size={(r, c): w for r, c, w in cert.by_size},
-                    proof_nodes=None if cert.proof_nodes is None else dict(cert.proof_nodes),
-                    undecided_nodes=cert.nodes,
-                    step_bound=None if bound is None else (bound["steps"], bound["source"]),
-                    settle=None if cert.settle is None else dict(cert.settle),
-                    late_groups={s: {row.tobytes(): int(c) for row, c in zip(g.rows(m), g.counts)}
-                                 for s, g in self.late.items()})
-
     def _key_summary(self) -> dict:
         return {"distinct": self.distinct, "groups": [[list(s), len(self.groups[s])] for s in self.shapes]}
-
-    def body(self) -> dict:
-        out = {
-            "groups": [self._group_spec(self.groups[shape]) for shape in self.shapes],
-            "hist_steps": encode_hist(self.hist_steps),
-            "hist_len": encode_hist(self.hist_len),
-        }
-        if self.late:  # since 1.6: halts past the cap (certificate "settle"), keyed as the groups
-            out["late"] = [self._group_spec(self.late[shape]) for shape in sorted(self.late)]
-        return out
-
-    @staticmethod
-    def _group_spec(g: Group) -> dict:
-        if g.codes is not None:
-            keys = {"kind": "code64", "data": g.codes.astype("<u8").tobytes()}
-        else:
-            keys = {"kind": "symbols", "data": np.ascontiguousarray(g.symbols).tobytes()}
-        spec = {"shape": list(g.shape), "n": len(g), "keys": keys, "counts": encode_counts([int(c) for c in g.counts])}
-        if g.moments is not None:
-            spec["moments"] = encode_counts([int(c) for c in g.moments])
-        return spec
-
-    def to_bytes(self) -> bytes:
-        header = {k: v for k, v in self.header.items() if not k.startswith("_") and k != "body"}
-        return fmt.encode(header, self.body())
-
-    def save(self, path) -> None:
-        fmt.write_atomic(path, self.to_bytes())
 
     # ---- keys
     def parse_key(self, key) -> tuple[tuple, np.ndarray]:
@@ -396,7 +192,6 @@ class Table:
             raise TableError(f"key {keytext.shown(key)} is not a non-empty {self.space.dims}D array of symbols")
         return tuple(arr.shape), self._symbols(arr, f"key {keytext.shown(key)}").reshape(-1)
 
-    _parse_key = parse_key  # the name older callers use
 
     def _symbols(self, arr: np.ndarray, what: str) -> np.ndarray:
         """arr as uint8 symbols (keys.as_symbols: integers only, each in 0..m-1)."""
@@ -483,7 +278,7 @@ class Table:
     def probability(self, key) -> float:
         self.require_halting()
         c = self.count(key)
-        self._warn_rare(key, c)
+        sampled.warn_rare(self, key, c)
         return c / self.total
 
     def fallback(self) -> float:
@@ -516,7 +311,7 @@ class Table:
             raise
         if c == 0:
             return self._missing(key, missing)
-        self._warn_rare(key, c)
+        sampled.warn_rare(self, key, c)
         return math.log2(self.total) - math.log2(c)
 
     def interval(self, key) -> tuple[float, float]:
@@ -531,12 +326,12 @@ class Table:
             c = self.count(key)
             if c == 0:  # never seen in H halting samples: p <= 3/H at 95% (the rule of three)
                 return (math.log2(self.halting / 3) if self.halting > 3 else 0.0), math.inf
-            self._warn_rare(key, c)
-            low, high = _interval95(np.float64(c / self.total), np.float64(self.standard_error(key)))
+            sampled.warn_rare(self, key, c)
+            low, high = sampled.interval95(np.float64(c / self.total), np.float64(sampled.standard_error(self, key)))
             return float(low), float(high)
         shape, pos = self._find(key)
         c = 0 if pos < 0 else int(self.groups[shape].counts[pos])
-        low, high = self._certified(shape, [c], self._parse_key(key)[1][None, :])
+        low, high = self._certified(shape, [c], self.parse_key(key)[1][None, :])
         return float(low[0]), float(high[0])
 
     def undecided_reach(self, shape) -> int:
@@ -570,63 +365,6 @@ class Table:
             return None
         bound = self.certificate.step_bound if self.certificate is not None else None
         return "step-bound" if bound is not None else "proofs"
-
-    def standard_error(self, key) -> float:
-        """Sampled tables: the standard error of the probability estimate (delta method, see
-        enumerator.tally.sample_errors). Exhaustive tables are exact: 0."""
-        if self.mode != "sampled":
-            return 0.0
-        self.require_halting()
-        shape, pos = self._find(key)
-        if pos < 0:
-            return math.nan  # never seen: see interval() for its one-sided bound
-        return float(self._errors(int(self.groups[shape].counts[pos]), int(self.groups[shape].moments[pos])))
-
-    def seen(self, key) -> float:
-        """Sampled tables: how many samples produced the key, S1^2 / S2 (exact when each of them
-        gave it the same number of images; the count alone overstates keys that are their own
-        images, such as 0000). Exhaustive tables: its count."""
-        shape, pos = self._find(key)
-        self._refuse_dropped(key, shape)
-        if pos < 0:
-            return 0.0
-        g = self.groups[shape]
-        if self.mode != "sampled":
-            return float(g.counts[pos])
-        return float(_seen(np.float64(g.counts[pos]), np.float64(g.moments[pos])))
-
-    def _errors(self, s1, s2, errors=sample_errors):
-        sample = self.header["sample"]
-        return errors(s1, s2, sample["size"], sample["images_per_sample"], self.halting)
-
-    def relative_errors(self, shape) -> np.ndarray:
-        """Sampled tables: standard error / estimate for every key of one shape seen, in key order."""
-        shape = (shape,) if isinstance(shape, int) else tuple(shape)
-        g = self.groups.get(shape)
-        if self.mode != "sampled" or g is None:
-            return np.zeros(0 if g is None else len(g))
-        return self._errors(np.asarray(g.counts, dtype=np.float64), np.asarray(g.moments, dtype=np.float64),
-                            relative_sample_errors)
-
-    def rare(self, min_seen: int | None = None) -> int:
-        """Sampled tables: how many keys were seen fewer than min_seen times (default
-        self.min_seen); their estimates are rough. Exhaustive tables: 0."""
-        limit = self.min_seen if min_seen is None else min_seen
-        if self.mode != "sampled":
-            return 0
-        return sum(int(np.count_nonzero(self._group_seen(g) < limit)) for g in self.groups.values())
-
-    @staticmethod
-    def _group_seen(g: Group) -> np.ndarray:
-        return _seen(np.asarray(g.counts, dtype=np.float64), np.asarray(g.moments, dtype=np.float64))
-
-    def _warn_rare(self, key, c) -> None:
-        if self.mode == "sampled" and c > 0 and self.min_seen > 0:
-            seen = self.seen(key)
-            if seen < self.min_seen:
-                warnings.warn(RareKeyWarning(
-                    f"{key!r} was seen in {seen:.3g} samples, fewer than {self.min_seen}; its estimate "
-                    "is rough (sample more, or set min_seen to silence this)"), stacklevel=3)
 
     def lookup(self, keys, missing: str = "nan") -> dict:
         """Vectorised lookups. keys: a list of keys, or an N x L (1D) / N x R x C (2D)
@@ -674,7 +412,7 @@ class Table:
                 continue
             counts[where] = self._counts_of(shape, rows)
             if self.mode == "sampled":
-                moments[where] = self._moments_of(shape, rows)
+                moments[where] = sampled.moments_of(self, shape, rows)
         with np.errstate(divide="ignore", invalid="ignore"):
             ctm = math.log2(self.total) - np.log2(counts)
         absent = counts == 0
@@ -701,21 +439,13 @@ class Table:
                         low[where], high[where] = self.dropped_bound(shape), np.inf
         if self.mode == "sampled":
             with np.errstate(divide="ignore", invalid="ignore"):
-                out["standard_error"] = np.where(counts > 0, self._errors(counts, moments), np.nan)
-                rare = int(np.count_nonzero((counts > 0) & (_seen(counts, moments) < self.min_seen)))
+                out["standard_error"] = np.where(counts > 0, sampled.errors(self, counts, moments), np.nan)
+                rare = int(np.count_nonzero((counts > 0) & (sampled.seen_of(counts, moments) < self.min_seen)))
             if rare:
                 warnings.warn(RareKeyWarning(
                     f"{rare} of the {len(counts)} keys were seen fewer than {self.min_seen} times in this sampled "
                     "table; their estimates are rough (sample more, or set min_seen to silence this)"), stacklevel=2)
         return out
-
-    def _moments_of(self, shape, rows) -> np.ndarray:
-        g = self.groups.get(shape)
-        if g is None:
-            return np.zeros(len(rows))
-        pos = self._position(shape, np.ascontiguousarray(rows, dtype=np.uint8))
-        vals = np.asarray(g.moments, dtype=np.float64)
-        return np.where(pos >= 0, vals[np.maximum(pos, 0)], 0.0)
 
     def _counts_of(self, shape, rows) -> np.ndarray:
         """Counts (float64) of rows of valid symbols: a dense array indexed by code for small
@@ -723,72 +453,12 @@ class Table:
         g = self.groups.get(shape)
         if g is None:
             return np.zeros(len(rows))
-        keys = self._dense_keys(shape)
+        keys = dense.dense_keys(self, shape)
         if g.codes is not None and keys is not None and keys <= DENSE_LOOKUP:
-            return self._dense_counts(shape)[codes_of(rows, self.space.symbols).astype(np.intp)]
+            return dense.dense_counts(self, shape)[codes_of(rows, self.space.symbols).astype(np.intp)]
         pos = self._position(shape, np.ascontiguousarray(rows, dtype=np.uint8))
         vals = np.asarray(g.counts, dtype=np.float64)
         return np.where(pos >= 0, vals[np.maximum(pos, 0)], 0.0)
-
-    def _dense_keys(self, shape) -> int | None:
-        """m^cells, the keys of one shape, when at most MAX_DENSE; None above (the power itself
-        is never computed for long shapes: 2^(10^9) alone takes seconds)."""
-        cells = math.prod(shape)
-        if cells > MAX_DENSE.bit_length() - 1:  # m >= 2, so m^cells > MAX_DENSE
-            return None
-        keys = self.space.symbols ** cells
-        return keys if keys <= MAX_DENSE else None
-
-    def _cached(self, key, make) -> np.ndarray:
-        """self._dense[key], made once while the kept arrays stay under CACHE_BYTES."""
-        if key in self._dense:
-            return self._dense[key]
-        out = make()
-        out.setflags(write=False)
-        if sum(a.nbytes for a in self._dense.values()) + out.nbytes <= CACHE_BYTES:
-            self._dense[key] = out
-        return out
-
-    def _new_dense_counts(self, shape) -> np.ndarray:
-        dense = np.zeros(self._dense_keys(shape), dtype=np.float64)
-        g = self.groups.get(shape)
-        if g is not None:  # the loader stores every shape of at most 2^64 keys as codes
-            dense[g.codes.astype(np.intp)] = np.asarray(g.counts, dtype=np.float64)
-        return dense
-
-    def _dense_counts(self, shape) -> np.ndarray:
-        return self._cached(("counts", shape), lambda: self._new_dense_counts(shape))
-
-    def dense(self, shape, missing: str = "nan") -> np.ndarray:
-        """CTM of every key of one shape (an int length in 1D, (rows, cols) in 2D),
-        indexed by base-m code, most significant symbol first (row-major in 2D)."""
-        try:
-            shape = (operator.index(shape),) if not isinstance(shape, (tuple, list)) else tuple(
-                operator.index(s) for s in shape)
-        except TypeError:
-            raise TableError(f"shape {shape!r} is not a length or a (rows, cols) pair of whole numbers") from None
-        if len(shape) != self.space.dims or min(shape) < 1:
-            raise TableError(f"shape {shape} does not fit a {self.space.dims}D table; give "
-                             + ("a length >= 1" if self.space.dims == 1 else "(rows, cols), each >= 1"))
-        if self._dense_keys(shape) is None:
-            raise TableError(f"a dense view of shape {shape} would hold {self.space.symbols}^{math.prod(shape)} "
-                             f"keys, over {MAX_DENSE:,}; use lookup() instead")
-        if missing not in ("nan", "fallback"):
-            raise TableError("a dense view needs missing='nan' or 'fallback'")
-        self._refuse_dropped(f"(every key of shape {'x'.join(map(str, shape))})", shape)
-        self.require_halting()
-
-        def make():  # in place on a fresh count array: one array of m^cells floats at a time
-            kept = self._dense.get(("counts", shape))
-            out = kept.copy() if kept is not None else self._new_dense_counts(shape)
-            absent = out == 0
-            with np.errstate(divide="ignore"):
-                np.log2(out, out=out)
-            np.subtract(math.log2(self.total), out, out=out)
-            out[absent] = self._missing(None, missing)
-            return out
-
-        return self._cached((missing, shape), make)
 
     def items(self, shape=None):
         """(key text, exact count) in shape order, then code order; optionally one shape."""
@@ -807,121 +477,68 @@ class Table:
     def __len__(self):
         return self.distinct
 
+    # ---- building and saving (tables/convert.py, tables/write.py)
+    @classmethod
+    def from_tally(cls, tally, *, command: str = "", notes: str = "", builder: str | None = None,
+                   workers=None) -> "Table":
+        """The table of a build's Tally, with its header (who built it: builder, else
+        $CTMTAB_BUILDER, else nobody; workers: the build's worker count or "dask", if known)."""
+        return convert.table_from_tally(cls, tally, command=command, notes=notes, builder=builder,
+                                        workers=workers)
+
+    def to_tally(self):
+        """The exact tally behind this table (for merging and extending)."""
+        return convert.tally_of(self)
+
+    def body(self) -> dict:
+        return write.body(self)
+
+    def to_bytes(self) -> bytes:
+        return write.table_bytes(self)
+
+    def save(self, path) -> None:
+        """Write the table to path atomically: no half-written file ever has that name."""
+        write.save(self, path)
+
+    # ---- sampled tables (tables/sampled.py); exhaustive tables are exact
+    def standard_error(self, key) -> float:
+        """Sampled tables: the standard error of the probability estimate. Exhaustive: 0."""
+        return sampled.standard_error(self, key)
+
+    def seen(self, key) -> float:
+        """Sampled tables: how many samples produced the key. Exhaustive tables: its count."""
+        return sampled.seen(self, key)
+
+    def relative_errors(self, shape) -> np.ndarray:
+        """Sampled tables: standard error / estimate for every key of one shape seen, in key order."""
+        return sampled.relative_errors(self, shape)
+
+    def rare(self, min_seen: int | None = None) -> int:
+        """Sampled tables: how many keys were seen fewer than min_seen times (default
+        self.min_seen). Exhaustive tables: 0."""
+        return sampled.rare(self, min_seen)
+
+    @staticmethod
+    def group_seen(g: Group) -> np.ndarray:
+        """Sampled tables: how many samples produced each key of one group."""
+        return sampled.group_seen(g)
+
+    # ---- dense views (tables/dense.py)
+    def dense(self, shape, missing: str = "nan") -> np.ndarray:
+        """CTM of every key of one shape (an int length in 1D, (rows, cols) in 2D),
+        indexed by base-m code, most significant symbol first (row-major in 2D)."""
+        return dense.dense(self, shape, missing)
+
+    # ---- reports (tables/report.py)
     def summary(self) -> dict:
-        # the rarest key has the largest CTM, the commonest the smallest
-        top = max((max(g.counts) for g in self.groups.values()), default=0)
-        low = min((min(g.counts) for g in self.groups.values()), default=0)
-        log_total = math.log2(self.total) if self.total else math.nan
-        return {
-            "space": self.space.to_dict(),
-            "label": self.space.label,
-            "cap": self.cap,
-            "mode": self.mode,
-            "space_size": self.space_size,
-            "halting": self.halting,
-            "non_halting": self.non_halting,
-            "undecided": self.undecided,
-            "undecided_fraction": self.undecided / (self.header["sample"]["size"] if self.mode == "sampled"
-                                                    else self.space_size),
-            "sample": self.header.get("sample"),
-            "distinct_keys": self.distinct,
-            "keys_by_shape": {"x".join(map(str, s)): len(self.groups[s]) for s in self.shapes},
-            "complete_shapes": ["x".join(map(str, s)) for s in self.shapes
-                                if len(self.groups[s]) == self.space.symbols ** math.prod(s)],
-            "ctm_min": log_total - math.log2(int(top)) if top else math.nan,
-            "ctm_max": log_total - math.log2(int(low)) if low else math.nan,
-            "stats": self.header.get("stats", {}),
-            "deciders": self.header.get("deciders", []),
-            "certificate": self._certificate_summary(),
-            "cut": None if self.cut is None else {
-                "max_size": self.cut.max_size, "dropped_keys": self.cut.keys, "dropped_weight": self.cut.weight,
-                "dropped": [{"shape": "x".join(map(str, sh)), "weight": w, "keys": k, "largest_count": top}
-                            for sh, (w, k, top) in sorted(self.cut.dropped.items())]},
-            "format": self.header.get("_format", [fmt.MAJOR, fmt.MINOR]),
-            "generator": self.header.get("generator", {}),
-            "build": self.header.get("build", {}),
-            "notes": self.header.get("notes", ""),
-            **(self._sample_summary() if self.mode == "sampled" else {}),
-        }
-
-    def _certificate_summary(self) -> dict | None:
-        cert = self.certificate
-        if cert is None or self.mode != "exhaustive":
-            return None
-        return {"exact": self.exact, "exact_by": self.exact_by, "step_bound": cert.step_bound, "undecided_nodes": cert.nodes,
-                "proofs": dict(cert.proofs), "proof_nodes": cert.proof_nodes,
-                "settle": None if cert.settle is None else {k: v for k, v in cert.settle.items() if k != "late_keys"},
-                "widest_interval_by_shape": self.interval_widths()}
-
-    def _sample_summary(self) -> dict:
-        """Per output size (1D length, 2D longer side): keys seen, the median and worst relative
-        standard error, and the keys seen fewer than min_seen times."""
-        by_size: dict = {}
-        for shape in self.shapes:
-            rel = self.relative_errors(shape)
-            entry = by_size.setdefault(max(shape), {"rel": [], "rare": 0})
-            entry["rel"].append(rel)
-            entry["rare"] += int(np.count_nonzero(self._group_seen(self.groups[shape]) < self.min_seen))
-        rows = []
-        for size, entry in sorted(by_size.items()):
-            rel = np.concatenate(entry["rel"])
-            rows.append({"size": size, "keys": len(rel), "median_relative_error": float(np.median(rel)),
-                         "worst_relative_error": float(rel.max()), "rare_keys": entry["rare"]})
-        return {"streams": [list(x) for x in self.streams], "min_seen": self.min_seen,
-                "rare_keys": sum(r["rare_keys"] for r in rows), "errors_by_size": rows}
+        return report.summary(self)
 
     def write_csv(self, out) -> None:
         """One row per key: the exact count, and for sampled tables the probability, its standard
         error, the CTM and its 95% interval (not certified)."""
-        if self.mode != "sampled":  # the exact count, the CTM and its certified interval
-            out.write("key,count,ctm,ctm_low,ctm_high\n")
-            log_total = math.log2(self.total) if self.total else math.nan
-            for shape in self.shapes:
-                g = self.groups[shape]
-                low, high = self._certified(shape, g.counts, g.rows(self.space.symbols))
-                for row, c, lo, hi in zip(g.rows(self.space.symbols), g.counts, low, high):
-                    out.write(f"{self.key_text(shape, row)},{int(c)},{log_total - math.log2(int(c)):.6g},"
-                              f"{lo:.6g},{hi:.6g}\n")
-            return
-        out.write("key,count,probability,standard_error,ctm,ctm_low,ctm_high\n")
-        if not self.total:
-            return  # no halting sample: no rows
-        log_total = math.log2(self.total)
-        for shape in self.shapes:
-            g = self.groups[shape]
-            counts = np.asarray(g.counts, dtype=np.float64)
-            p = counts / self.total
-            se = self._errors(counts, np.asarray(g.moments, dtype=np.float64))
-            low, high = _interval95(p, se)
-            for row, c, pi, e, lo, hi in zip(g.rows(self.space.symbols), g.counts, p, se, low, high):
-                out.write(f"{self.key_text(shape, row)},{int(c)},{pi:.6g},{e:.3g},"
-                          f"{log_total - math.log2(int(c)):.6g},{lo:.6g},{hi:.6g}\n")
+        report.write_csv(self, out)
 
     def to_json(self) -> dict:
-        meta = {k: v for k, v in self.header.items() if k not in ("body",) and not k.startswith("_")}
-        return {"meta": meta, "counts": dict(self.items()),
-                "hist_steps": self.hist_steps.tolist(), "hist_len": self.hist_len.tolist()}
+        return report.to_json(self)
 
 
-def _interval95(p, se):
-    """CTM bounds, in bits, of the approximate 95% interval p +- 1.96 se (numpy); inf where a
-    bound of the probability is not above 0."""
-    hi_p, lo_p = p + 1.96 * se, p - 1.96 * se
-    with np.errstate(divide="ignore", invalid="ignore"):
-        low = np.where(hi_p > 0, -np.log2(np.maximum(hi_p, 1e-300)), np.inf)
-        high = np.where(lo_p > 0, -np.log2(np.maximum(lo_p, 1e-300)), np.inf)
-    return low, high
-
-
-def _seen(s1, s2):
-    """Samples behind a key: S1^2 / S2 (n samples of x images each give n x^2 / x^2 = n)."""
-    return s1 * s1 / s2
-
-
-BUILDER_ENV = "CTMTAB_BUILDER"
-
-
-def _whoami() -> str:
-    """The default build.by: what the user configured in $CTMTAB_BUILDER, else nothing. Tables
-    are shared, so the user and host name are never recorded unasked."""
-    return " ".join(os.environ.get(BUILDER_ENV, "").split())

@@ -5,7 +5,8 @@ import functools
 
 import numpy as np
 
-from ..enumerator.tally import blank_perms, dihedral_images
+from ..model.space import default_depth
+from ..model.symmetry import blank_perms, dihedral_images
 from ..errors import CoreMissingError, CtmtabError, TooLargeError
 from .table import Table
 
@@ -63,8 +64,6 @@ def shard_weight_problems(t: Table, notes: list) -> list[str]:
     covered = units.get("covered", "all")
     if t.mode != "exhaustive" or covered == "all" or len(covered) == units.get("count"):
         return []
-    from ..enumerator.units import default_depth
-
     depth = units.get("depth", 0)
     if not 1 <= depth <= default_depth(t.space) + 1:  # a deeper top can cost as much as a build
         notes.append(f"the weight of the shard's units was not recomputed (split depth {depth}: rebuilding "
@@ -92,8 +91,7 @@ def shard_weight_problems(t: Table, notes: list) -> list[str]:
 
 def _streams(t: Table, notes: list) -> list[str]:
     """The table's own streams must draw from disjoint stretches of the generator."""
-    from ..enumerator.driver import SAMPLE_UNIT
-    from ..enumerator.streams import first_overlap
+    from ..model.streams import SAMPLE_UNIT, first_overlap
 
     try:
         found = first_overlap([(None, seed, size) for seed, size in t.streams], t.space.entries, SAMPLE_UNIT)
@@ -109,6 +107,8 @@ def _streams(t: Table, notes: list) -> list[str]:
 
 @functools.lru_cache(maxsize=4)  # the shards of one build share their plan
 def _plan(space, cap: int, depth: int, deciders: tuple, relabel: bool):
+    # the one use of the enumerator in tables/ (tests/test_layers.py): only the compiled core can
+    # rebuild a plan, so this import is lazy and its absence a note, never a failure
     from ..enumerator.driver import plan
 
     return plan(space, cap, depth, deciders, relabel)

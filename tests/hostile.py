@@ -8,8 +8,8 @@ import warnings
 import msgpack
 import zstandard
 
-from ctmtab.enumerator.space import Space
-from ctmtab.enumerator.tally import Tally
+from ctmtab.model.space import Space
+from ctmtab.model.tally import Tally
 from ctmtab.tables import Table
 from ctmtab.tables import format as fmt
 

@@ -8,7 +8,7 @@ import pytest
 
 from ctmtab.enumerator import Space, build
 from ctmtab.enumerator import holdouts as ho
-from ctmtab.enumerator.bounds import STEP_BOUNDS, bound_reached
+from ctmtab.model.bounds import STEP_BOUNDS, bound_reached
 from ctmtab.enumerator.native import core as _core
 from ctmtab.errors import InconsistentTableError
 from ctmtab.tables import Table
@@ -467,7 +467,7 @@ def test_proof_node_counts_do_not_depend_on_the_split_or_the_executor():
 
 
 def test_a_spool_record_without_node_counts_leaves_them_unknown_not_zero():
-    from ctmtab.enumerator.tally import Partial
+    from ctmtab.enumerator.accumulate import Partial
     unit = _core.run_unit(1, 2, 2, 6, 0, (), -1, False)
     unit.pop("cuts", None)
     old = {k: v for k, v in unit.items() if k != "proven_nodes"}

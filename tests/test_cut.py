@@ -229,7 +229,7 @@ def test_a_build_cut_in_the_core_keeps_the_same_keys_and_dropped_weights(space, 
     assert all(k is None and top == w for w, k, top in core_cut.cut.dropped.values())  # never collected
     assert core_cut.total == whole.total and problems(loads(core_cut.to_bytes())) == []
     for key, _ in list(whole.items())[::7]:  # the weaker bound still holds
-        if core_cut.dropped(whole._parse_key(key)[0]):
+        if core_cut.dropped(whole.parse_key(key)[0]):
             assert core_cut.interval(key)[0] <= whole.ctm(key) + 1e-12
 
 

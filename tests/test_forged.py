@@ -7,7 +7,7 @@ import sys
 import pytest
 
 from ctmtab.enumerator import Space, build, sample
-from ctmtab.enumerator.bounds import STEP_BOUNDS
+from ctmtab.model.bounds import STEP_BOUNDS
 from ctmtab.errors import InconsistentTableError, MergeError
 from ctmtab.tables import Table, load, loads, merge, problems
 

@@ -20,7 +20,7 @@ import pytest
 
 from ctmtab.enumerator import Space, Target, executors, plan, sample
 from ctmtab.enumerator import spool as spool_mod
-from ctmtab.enumerator.driver import SAMPLE_UNIT
+from ctmtab.model.streams import SAMPLE_UNIT
 from ctmtab.errors import CtmtabError
 from ctmtab.tables import load
 from ctmtab.tools import cli as cli_mod

@@ -21,7 +21,8 @@ from ctmtab.enumerator import Space
 from ctmtab.errors import InconsistentTableError, SizeLimitError, TableError
 from ctmtab.tables import Table, load, loads, problems
 from ctmtab.tables import format as fmt
-from ctmtab.tables.table import DENSE_LOOKUP, MAX_DENSE
+from ctmtab.tables import sampled
+from ctmtab.tables.dense import DENSE_LOOKUP, MAX_DENSE
 
 from hostile import load_or_refuse, no_halting, small_2d, small_valid, split, with_header, with_raw_body, with_zero_body
 
@@ -176,11 +177,11 @@ def test_verify_refuses_moments_that_give_a_zero_standard_error():
     s1 = int(g.counts[0])
     s2 = (s1 * s1 - 1) // t.halting  # S2 H < S1^2: under the Cauchy-Schwarz bound, yet S1 <= S2 <= k S1
     assert s1 <= s2 <= t.header["sample"]["images_per_sample"] * s1
-    assert t._errors(s1, int(g.moments[0])) > 0
+    assert sampled.errors(t, s1, int(g.moments[0])) > 0
     mom = np.asarray(g.moments, dtype=object).copy()
     mom[0] = s2
     g.moments = mom
-    assert t._errors(s1, s2) == 0.0  # what a reader would have reported: a false certainty
+    assert sampled.errors(t, s1, s2) == 0.0  # what a reader would have reported: a false certainty
     assert [p for p in problems(t) if "impossible moments" in p] == [
         f"shape (1,): 1 keys have impossible moments, S1^2 > H x S2 (a standard error below what "
         f"{t.halting} halting samples allow), e.g. 0"]

@@ -5,7 +5,7 @@ import shlex
 import pytest
 
 from ctmtab.enumerator import Space, build, run
-from ctmtab.enumerator.bounds import bound_reached
+from ctmtab.model.bounds import bound_reached
 from ctmtab.tables import load, problems
 
 CHAMPION_24 = "1RB2LA1RA1RA_1LB1LA3RB1RZ"  # S(2,4) = 3,932,964 steps, 2,050 non-zero cells (arXiv:2509.12337)

@@ -12,7 +12,9 @@ import pytest
 
 from ctmtab.enumerator import Space, build
 from ctmtab.enumerator.driver import plan
-from ctmtab.enumerator.tally import InvariantError, Partial, expand_raw, symbol_maps
+from ctmtab.enumerator.accumulate import Partial, expand_raw
+from ctmtab.errors import InvariantError
+from ctmtab.model.symmetry import symbol_maps
 from ctmtab.tables import Table, load
 from ctmtab.tables.verify import problems
 

@@ -152,9 +152,11 @@ def test_extending_with_a_new_seed_is_an_exact_merge():
 
 
 def test_a_table_expanded_the_older_way_is_not_mixed_in(monkeypatch):
-    import ctmtab.enumerator.tally as tally_module
+    import ctmtab.enumerator.accumulate as accumulate
+    import ctmtab.model.symmetry as symmetry
     with monkeypatch.context() as patch:  # format 1.1 expanded each sample by the m blank swaps only
-        patch.setattr(tally_module, "sample_perms", tally_module.blank_perms)
+        for module in (symmetry, accumulate):
+            patch.setattr(module, "sample_perms", symmetry.blank_perms)
         older = loads(Table.from_tally(sample(Space(1, 2, 3), 38, 25_000, seed=8)).to_bytes(), where="old.ctmt")
     assert older.header["sample"]["images_per_sample"] == 6
     with pytest.raises(MergeError, match="old.ctmt .* rebuild"):

@@ -8,7 +8,7 @@ step bound (every run left at the bound never halts), the independent brute forc
 import itertools
 import math
 
-import msgpack
+
 import numpy as np
 import pytest
 
@@ -17,7 +17,7 @@ from conftest import brute_force
 from hostile import load_or_refuse, with_header
 
 from ctmtab.enumerator import Space, build
-from ctmtab.enumerator.tally import size_of
+from ctmtab.model.symmetry import size_of
 from ctmtab.errors import InconsistentTableError, MergeError, SpaceError, TooLargeError
 from ctmtab.tables import Table, load, loads, merge, problems
 

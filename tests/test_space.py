@@ -70,8 +70,8 @@ def test_invariant_holds(n, m, cap):
 
 
 def test_the_cap_limit_reaches_the_five_state_bound():
-    from ctmtab.enumerator.bounds import STEP_BOUNDS
-    from ctmtab.enumerator.space import MAX_CAP, check_cap
+    from ctmtab.model.bounds import STEP_BOUNDS
+    from ctmtab.model.space import MAX_CAP, check_cap
     assert max(STEP_BOUNDS.values(), key=lambda b: b[0])[0] <= MAX_CAP  # S(5) = 47,176,870 fits
     assert check_cap(MAX_CAP) == MAX_CAP
     with pytest.raises(SpaceError, match="over the limit"):

@@ -10,9 +10,9 @@ import numpy as np
 import pytest
 
 from ctmtab.enumerator import Space, sample
-from ctmtab.enumerator.driver import SAMPLE_UNIT, unit_seed
+from ctmtab.enumerator.driver import unit_seed
 from ctmtab.enumerator.native import core as _core
-from ctmtab.enumerator.streams import first_overlap, places
+from ctmtab.model.streams import SAMPLE_UNIT, first_overlap, places
 from ctmtab.errors import MergeError
 from ctmtab.tables import Table, load, merge, problems
 

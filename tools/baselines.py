@@ -7,7 +7,6 @@ import math
 import zlib
 from collections import Counter
 
-import numpy as np
 
 from ..tables import keys
 

@@ -14,7 +14,7 @@ import time
 from pathlib import Path
 
 from .._version import __version__
-from ..enumerator.deciders import DECIDERS
+from ..model.deciders import DECIDERS
 from ..errors import CtmtabError, OutputError, RareKeyWarning
 
 DEFAULT_MIN_SEEN = 10  # the reader's default too (tables.table.DEFAULT_MIN_SEEN)
@@ -48,7 +48,7 @@ def _hours(text: str) -> float:
 def _check_text(argv) -> None:
     """Arguments and the builder name go into table headers as UTF-8 text: refuse bytes that are
     not UTF-8 before any work, not when the finished table is written."""
-    from ..tables.table import BUILDER_ENV
+    from ..tables.convert import BUILDER_ENV
 
     named = [(f"argument {os.fsencode(x)!r}", x) for x in argv]
     named.append((f"${BUILDER_ENV}", os.environ.get(BUILDER_ENV, "")))
@@ -273,7 +273,7 @@ def _extend_base(a):
     from ..tables import load
 
     base = load(a.extend)
-    if base.mode != "sampled":
+    if base.mode != "sampled":  # before the flags are compared with it
         raise CtmtabError(f"{a.extend} is an exhaustive table; only sampled tables can be extended")
     given = {"dims": a.dims, "states": a.states, "symbols": a.symbols, "max_steps": a.max_steps}
     has = {"dims": base.space.dims, "states": base.space.states, "symbols": base.space.symbols,
@@ -282,43 +282,27 @@ def _extend_base(a):
         if value is not None and value != has[name]:
             raise CtmtabError(f"--{name.replace('_', '-')} {value} contradicts {a.extend} ({has[name]}); "
                               "leave it out, the table fixes the space and the cap")
-    seeds = {s for s, _ in base.streams}
+    from .extend import check_extension, next_seed
+
     if a.seed is None:
-        a.seed = max(seeds) + 1
-    elif a.seed in seeds:
-        raise CtmtabError(f"{a.extend} already holds samples of seed {a.seed}; choose a new --seed "
-                          f"(e.g. {max(seeds) + 1}) or leave it out")
-    # refused before any work: the new stream's first 10^8 samples when no --sample bounds it
-    # (an error or time target); what lies past them is checked when the samples are added
-    new = min(a.sample, 10**8) if a.sample is not None and a.sample > 0 else 10**8
-    from ..enumerator.tally import refuse_overlap
-    refuse_overlap(base.space, [(str(a.extend), seed, n) for seed, n in base.streams]
-                   + [("the new samples", a.seed, new)], "choose another --seed")
+        a.seed = next_seed(base)
+    check_extension(base, a.seed, a.sample, where=str(a.extend))  # before any work
     a.dims, a.states, a.symbols, a.max_steps = has["dims"], has["states"], has["symbols"], has["max_steps"]
     if a.deciders == "all":
         a.deciders = ",".join(base.header.get("deciders", [])) or "none"
     elif set(_deciders(a.deciders)) != set(base.header.get("deciders", [])):
         raise CtmtabError(f"--deciders contradicts {a.extend}; leave it out, the table fixes the deciders")
-    from ..tables.merge import check_expansion
-    check_expansion(base)
     return base
 
 
 def cmd_build(a) -> int:
-    from ..enumerator import ALL_DECIDERS, Space, build
+    from ..enumerator import Space, build
     from ..enumerator.executors import cores
     from ..tables import Table
     from .progress import Bar
 
     sampled = a.sample is not None or bool(a.until) or a.extend is not None
-    seed_given = a.seed is not None
     base = _extend_base(a) if a.extend else None
-    if base is not None and not seed_given and a.seed >= 1 << 63:
-        seeds = {s for s, _ in base.streams}
-        free = next(k for k in range(len(seeds) + 1) if k not in seeds)
-        raise CtmtabError(f"{a.extend} holds samples of seed 2^63 - 1, the largest, so no seed follows its "
-                          f"seeds; give an unused lower one, e.g. --seed {free}")
-    prior = None if base is None else base.to_tally()  # converted once: the target and the sum use it
     for name, value in SPACE_DEFAULTS.items():
         if getattr(a, name) is None:
             setattr(a, name, value)
@@ -369,11 +353,18 @@ def cmd_build(a) -> int:
     spool = (stem + ".ctmt.parts") if special else output + ".parts"
     t0 = time.perf_counter()
     bar = Bar(f"{space.label} cap {cap}", enabled=False if a.quiet else None)
+    workers_field = "dask" if a.scheduler else workers
     try:
-        if sampled:
+        if base is not None:
+            from .extend import extend
+            table, tally = extend(base, a.sample, seed=seed, until=_until(a.until), workers=workers,
+                                  scheduler=a.scheduler, spool=spool, on_progress=bar,
+                                  budget_hours=a.budget_hours, command=_command(), notes=a.notes,
+                                  builder=a.builder)
+        elif sampled:
             from ..enumerator import sample
             tally = sample(space, cap, a.sample, seed=seed, deciders=deciders, workers=workers,
-                           scheduler=a.scheduler, until=_until(a.until), prior=prior, spool=spool,
+                           scheduler=a.scheduler, until=_until(a.until), spool=spool,
                            on_progress=bar, budget_hours=a.budget_hours)
         else:
             tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, workers=workers,
@@ -385,22 +376,11 @@ def cmd_build(a) -> int:
     if getattr(tally, "spool_damaged", 0):
         print(f"ctmtab build: warning: {tally.spool_damaged} spool part(s) in {spool} failed their seal "
               "check (damaged, moved or from another build); their units were recomputed", file=sys.stderr)
-    if base is not None:
-        from ..enumerator.tally import combine_samples
-        notes = "; ".join(x for x in (base.header.get("notes", ""), a.notes) if x)
-        table = Table.from_tally(combine_samples([prior, tally], [str(a.extend), "the new samples"]),
-                                 command=_command(), notes=notes, builder=a.builder)
-        before = base.header.get("build", {})
-        earlier = before.get("extended", {}).get("commands") or [before.get("command", "")]
-        table.header["build"]["extended"] = {"from": str(a.extend), "commands": earlier + [_command()]}
-        if tally.until:
-            table.header["build"]["until"] = tally.until
-    else:
-        table = Table.from_tally(tally, command=_command(), notes=a.notes, builder=a.builder)
+    if base is None:
+        table = Table.from_tally(tally, command=_command(), notes=a.notes, builder=a.builder,
+                                 workers=workers_field)
         if sampled and a.keep_size is not None:
             table = table.trimmed(a.keep_size)
-    table.header["build"]["resumed_units"] = tally.resumed
-    table.header["build"]["workers"] = "dask" if a.scheduler else workers
     try:
         table.save(output)
         if a.holdouts is not None:

@@ -200,7 +200,7 @@ def validate(table, estimator=None, values: dict | None = None, sizes=None, wors
     log_total = math.log2(table.total) if table.total else math.nan
     for shape in shapes:
         if shape in table.groups and table.mode == "sampled" and table.min_seen > 0:
-            rare += int(np.count_nonzero(table._group_seen(table.groups[shape]) < table.min_seen))
+            rare += int(np.count_nonzero(table.group_seen(table.groups[shape]) < table.min_seen))
         for key, count in table.items(shape):
             keys.append(key)
             exact.append(log_total - math.log2(count))  # table.ctm(key), without a lookup per key

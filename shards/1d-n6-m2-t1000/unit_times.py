@@ -7,7 +7,7 @@ import time
 
 from ctmtab.enumerator.driver import plan
 from ctmtab.enumerator.native import core
-from ctmtab.enumerator.space import Space
+from ctmtab.model.space import Space
 from ctmtab.enumerator.units import TOP, dump_result
 
 CAP, KEEP = 1000, 18

@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 
 from ctmtab.enumerator import Space, build, run, sample
-from ctmtab.enumerator.tally import Tally
+from ctmtab.model.tally import Tally
 from ctmtab.tables import Table, load, loads
 
 CHAMPION_5 = "1RB1LC_1RC1RB_1RD0LE_1LA1LD_1RZ0LA"  # S(5) = 47,176,870 steps (arXiv:2509.12337, verified)

@@ -89,3 +89,11 @@ def check_cap(cap) -> int:
     if cap > MAX_CAP:
         raise SpaceError(f"a step cap of {cap} is over the limit of {MAX_CAP}; use a smaller --max-steps")
     return cap
+
+
+def default_depth(space: Space) -> int:
+    """Cut depth used when none is given: a function of the space only, so that
+    every worker count, shard split and resume sees the same units. With 3 or more symbols the
+    first-use symbol order makes each unit several times larger, so one level less keeps the
+    per-unit overhead small (1D (2,3), (2,4), (3,3) all build faster at 3 than at 4)."""
+    return max(0, min(4 if space.symbols == 2 else 3, space.entries - 1))

@@ -1,7 +1,7 @@
 """Where each sampled work unit draws its machines, and whether two units ever draw the same.
 
 A unit's generator (ctm_core.c: ctm_unit_init, next_rand) starts at r0 = mix(U + golden) | 1, U
-its unit seed (driver.unit_seed), and every draw first steps r by the xorshift64 map T (shifts
+its unit seed (enumerator/driver.py unit_seed), and every draw first steps r by the xorshift64 map T (shifts
 12, 25, 27); a unit of c machines of a space with e table entries draws c·e times, so it uses
 the states T^1 r0 .. T^(c·e) r0. Distinct seeds do not keep these apart: mix is a bijection, so
 a seed can be chosen whose units start where another seed's units are.
@@ -18,6 +18,8 @@ import functools
 import numpy as np
 
 from ..errors import InvariantError, TooLargeError
+
+SAMPLE_UNIT = 25_000  # samples per work unit: the result never depends on the worker count
 
 U64 = np.uint64
 MASK = (1 << 64) - 1
@@ -239,18 +241,18 @@ def _places(states: np.ndarray) -> np.ndarray:
 
 
 def mix64(z: np.ndarray) -> np.ndarray:
-    """The splitmix64 output function on uint64 arrays (driver._mix64)."""
+    """The splitmix64 output function on uint64 arrays (enumerator/driver.py _mix64)."""
     z = (z ^ (z >> U64(30))) * U64(0xBF58476D1CE4E5B9)
     z = (z ^ (z >> U64(27))) * U64(0x94D049BB133111EB)
     return z ^ (z >> U64(31))
 
 
 def unit_starts(seed: int, units: int) -> np.ndarray:
-    """The generator's first state r0 of units 0..units-1 of a seed (driver.unit_seed, then
+    """The generator's first state r0 of units 0..units-1 of a seed (enumerator/driver.py unit_seed, then
     ctm_unit_init): mix(mix(mix(seed) + (k + 1) golden) + golden) | 1."""
     k = np.arange(1, units + 1, dtype=U64)
     unit = mix64(mix64(np.array([seed], dtype=U64)) + k * U64(GOLDEN))
-    unit[unit == 0] = 1  # driver.unit_seed's `or 1`
+    unit[unit == 0] = 1  # enumerator/driver.py unit_seed's `or 1`
     return mix64(unit + U64(GOLDEN)) | U64(1)
 
 
