@@ -15,7 +15,8 @@ import numpy as np
 from .._version import __version__
 from ..enumerator.space import Space
 from ..enumerator.tally import relabelling, relative_sample_errors, sample_errors, size_of
-from ..errors import InconsistentTableError, MissingKeyError, RareKeyWarning, SpaceError, TableError
+from ..errors import (DEFAULT_MIN_SEEN, InconsistentTableError, MissingKeyError, RareKeyWarning, SpaceError,
+                      TableError)
 from . import certify
 from . import cut as sizecut
 from .cut import DroppedKeyError
@@ -25,7 +26,6 @@ from .arrays import Hist, codes_of, encode_counts, encode_hist, exact_sum, fits_
 
 FORMALISM = "busy-beaver: entries MOVE(write, direction, next) or HALT(write); every transition is a step"
 MISSING_POLICIES = ("raise", "nan", "fallback")
-DEFAULT_MIN_SEEN = 10  # sampled keys seen fewer times than this draw a RareKeyWarning
 MAX_DENSE = 1 << 26  # keys in one dense view: 512 MiB of float64
 DENSE_LOOKUP = 1 << 20  # lookup() indexes a dense count array up to this many keys (8 MiB), else searches
 CACHE_BYTES = 256 << 20  # dense arrays kept across calls, at most; beyond, each call builds its own
