@@ -21,8 +21,8 @@ class BDM:
 
     mode, for the cells that do not fill a block: 'drop' leaves them out; 'wrap' lets the last
     blocks wrap around to the start (a ring, or a torus in 2D); 'shrink' scores them with smaller
-    blocks of the same table. stride: the step
-    between blocks (default the block size, no overlap; 1 gives every overlapping block).
+    blocks of the same table. stride: the step between blocks (default the block size, no
+    overlap; 1 gives every overlapping block).
     missing: 'fallback' (default) scores a block the table never produced above every observed
     value, 'nan' makes the whole estimate NaN."""
 

@@ -14,12 +14,10 @@ import time
 from pathlib import Path
 
 from .._version import __version__
-from ..enumerator.deciders import DECIDERS
-from ..errors import CtmtabError, OutputError, RareKeyWarning
-from ..extras import require
-
 from ..enumerator.bounds import STEP_BOUNDS
-from ..errors import DEFAULT_MIN_SEEN
+from ..enumerator.deciders import DECIDERS
+from ..errors import DEFAULT_MIN_SEEN, CtmtabError, OutputError, RareKeyWarning
+from ..extras import require
 
 # build's default cap: the proven busy beaver value S(n, m) (enumerator/bounds.py) up to this many
 # steps. Longer ones are asked for by --max-steps (the exact (5,2) build takes 51 minutes on 2 cores).
