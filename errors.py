@@ -79,6 +79,10 @@ class CoreMissingError(CtmtabError, ImportError):
     """The compiled core is missing or stale: only building and running machines need it."""
 
 
+class ExtraMissingError(CtmtabError, ImportError):
+    """An optional dependency (an extra: plot, stats, cluster) is not installed; reading needs none."""
+
+
 class OutputError(CtmtabError):
     """An output path that cannot be written safely: a folder, a reader-less pipe, the input itself."""
 
@@ -92,6 +96,11 @@ class MissingKeyError(CtmtabError, KeyError):
 
     def __str__(self):  # KeyError would print the repr of the message
         return str(self.args[0]) if self.args else ""
+
+
+# Sampled keys seen fewer times than this draw a RareKeyWarning (kept here, beside it, so the
+# command line can show it without loading the reader).
+DEFAULT_MIN_SEEN = 10
 
 
 class RareKeyWarning(UserWarning):

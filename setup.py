@@ -1,5 +1,6 @@
-"""Build of the compiled core. Cython is a build requirement (pyproject.toml),
-so the generated C is never committed or shipped."""
+"""Build of the compiled core. Cython is a build requirement (pyproject.toml), so the
+generated C is never committed. The sdist carries the C sources (MANIFEST.in); the wheel
+carries the compiled core, the modules and the shipped tables only."""
 from Cython.Build import cythonize
 from setuptools import Extension, setup
 from setuptools.command.build_py import build_py
@@ -33,6 +34,7 @@ setup(
     },
     packages=["ctmtab", "ctmtab.enumerator", "ctmtab.model", "ctmtab.tables", "ctmtab.tools"],
     package_data={"ctmtab.tables": ["*.ctmt"]},
+    include_package_data=False,  # else every file of the sdist in a package folder (C sources) rides along
     cmdclass={"build_py": BuildPy},
     ext_modules=cythonize([core], language_level=3),
 )

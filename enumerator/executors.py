@@ -11,6 +11,7 @@ import sys
 import threading
 
 from ..errors import CtmtabError
+from ..extras import require
 from .native import core as _core
 
 IN_FLIGHT = 4  # tasks submitted ahead per worker: enough to keep every worker busy
@@ -176,10 +177,9 @@ SCHEDULER_TIMEOUT = 15.0  # seconds for the whole handshake: a scheduler answers
 
 
 def _dask_client(address: str):
-    try:
-        from distributed import Client
-    except ImportError:
-        raise CtmtabError("--scheduler needs Dask: pip install 'ctmtab[cluster]'") from None
+    require("distributed")
+    from distributed import Client
+
     limit = _scheduler_timeout()
     _handshake(address, limit)
     try:

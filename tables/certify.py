@@ -86,7 +86,7 @@ def whole(v, what: str, owner: str = "certificate") -> int:
 def parse(header: dict, non_halting: int, undecided: int, cap: int, dims: int = 1,
           space: Space | None = None, mode: str = "exhaustive") -> Certificate | None:
     """The certificate of a loaded header, checked against the totals, the deciders the header
-    lists and the one table of proven step bounds (enumerator/bounds.py); None when absent."""
+    lists and the one table of proven step bounds (model/bounds.py); None when absent."""
     cert = header.get("certificate")
     if cert is None:
         return None
@@ -187,7 +187,7 @@ def check_step_bound(steps: int, source: str, cap: int, undecided: int, space: S
                                      "builds use one")
     if space is not None and proven is None:
         raise InconsistentTableError(f"the certificate claims a step bound S = {steps}, but none is proven "
-                                     f"for {space.label} (enumerator/bounds.py)")
+                                     f"for {space.label} (model/bounds.py)")
     if proven is not None and (steps, source) != proven:
         raise InconsistentTableError(f"the certificate claims the step bound S = {steps} ({source}), but the "
                                      f"proven bound for {space.label} is S = {proven[0]} ({proven[1]})")

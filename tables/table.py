@@ -10,7 +10,8 @@ import numpy as np
 
 from ..model.space import Space
 from ..model.symmetry import size_of
-from ..errors import InconsistentTableError, MissingKeyError, RareKeyWarning, SpaceError, TableError
+from ..errors import (DEFAULT_MIN_SEEN, InconsistentTableError, MissingKeyError, RareKeyWarning, SpaceError,
+                      TableError)
 from . import certify, convert, dense, report, sampled, write
 from .group import Group
 from . import cut as sizecut
@@ -20,7 +21,6 @@ from . import keys as keytext
 from .arrays import Hist, codes_of, exact_sum
 
 MISSING_POLICIES = ("raise", "nan", "fallback")
-DEFAULT_MIN_SEEN = 10  # sampled keys seen fewer times than this draw a RareKeyWarning
 SHIPPED = Path(__file__).parent
 
 

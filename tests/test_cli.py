@@ -76,6 +76,9 @@ def test_run_the_five_state_champion():
     (("build", "--states", 7, "--max-steps", 1000), "CPU-hours"),
     (("build", "--states", 6, "--symbols", 6, "--max-steps", 10), "128-bit"),
     (("build", "--states", 5, "--symbols", 3), "give --max-steps"),
+    # proven (arXiv:2509.12337) but too long to take unasked: the value is offered
+    (("build", "--states", 5), "give --max-steps 47176870 for the exact table"),
+    (("build", "--states", 2, "--symbols", 4), "give --max-steps 3932964 for the exact table"),
     (("build", "-o", "/nonexistent/x.ctmt"), "folder does not exist"),
     (("run", "1RB1LB_1LA1RQ"), "character 13"),  # the Q
     (("run", "1RB1LB_1LA"), "state B"),
@@ -102,3 +105,11 @@ def test_default_build_writes_a_table(tmp_path):
     r = ctm("build", "-q", cwd=tmp_path)
     assert r.returncode == 0
     assert (tmp_path / "ctm-1d-n3-m2-t21.ctmt").exists()
+
+
+@pytest.mark.parametrize("states, symbols, cap", [(1, 2, 1), (2, 2, 6), (2, 3, 38)])
+def test_the_default_cap_is_the_busy_beaver_value(states, symbols, cap, tmp_path):
+    # S(1) = 1, S(2) = 6 (OEIS A060843); S(2,3) = 38 (Lafitte & Papazian 2007)
+    r = ctm("build", "-q", "--states", states, "--symbols", symbols, cwd=tmp_path)
+    assert r.returncode == 0, r.stderr
+    assert [p.name for p in tmp_path.iterdir()] == [f"ctm-1d-n{states}-m{symbols}-t{cap}.ctmt"]

@@ -137,7 +137,7 @@ def test_rare_keys_of_a_sampled_table_are_summed_up_in_one_line(tmp_path):
 
 # ---- BDM mode names
 
-def test_bdm_modes_new_names_and_deprecated_old_ones():
+def test_bdm_modes_and_the_removed_old_names():
     t5 = load("1d-n5-m2-t500")
     x = "0110100101" + "1100"
     with warnings.catch_warnings():
@@ -147,9 +147,10 @@ def test_bdm_modes_new_names_and_deprecated_old_ones():
     assert new["drop"] == pytest.approx(t5.ctm("0110100101"))
     assert new["shrink"] == pytest.approx(t5.ctm("0110100101") + t5.ctm("1100"))
     assert new["wrap"] == pytest.approx(t5.ctm("0110100101") + t5.ctm("1100011010"))
-    for old, mode in (("trim", "drop"), ("periodic", "wrap"), ("recursive", "shrink")):
-        with pytest.warns(DeprecationWarning, match=f"now called '{mode}'"):
-            assert BDM(t5, 10, mode=old)(x) == new[mode]
+    for old in ("trim", "periodic", "recursive"):  # the names of 0.1.0, removed after their release
+        with pytest.raises(CtmtabError) as caught:
+            BDM(t5, 10, mode=old)
+        assert str(caught.value) == f"unknown BDM mode {old!r}; use one of drop, wrap, shrink"
 
 
 # ---- build: the builder, the budget, non-UTF-8 arguments

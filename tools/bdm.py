@@ -6,7 +6,6 @@ the table, so a decomposition is a few vectorised passes."""
 from __future__ import annotations
 
 import math
-import warnings
 
 import numpy as np
 
@@ -15,8 +14,6 @@ from ..tables import keys as keytext
 
 # What happens to the cells that do not fill a whole block.
 MODES = ("drop", "wrap", "shrink")
-# The names of 0.1.0, accepted for one more release with a DeprecationWarning.
-OLD_MODES = {"trim": "drop", "periodic": "wrap", "recursive": "shrink"}
 
 
 class BDM:
@@ -24,17 +21,12 @@ class BDM:
 
     mode, for the cells that do not fill a block: 'drop' leaves them out; 'wrap' lets the last
     blocks wrap around to the start (a ring, or a torus in 2D); 'shrink' scores them with smaller
-    blocks of the same table. The old names trim, periodic and recursive still work for one
-    release and warn (DeprecationWarning). stride: the step
-    between blocks (default the block size, no overlap; 1 gives every overlapping block).
+    blocks of the same table. stride: the step between blocks (default the block size, no
+    overlap; 1 gives every overlapping block).
     missing: 'fallback' (default) scores a block the table never produced above every observed
     value, 'nan' makes the whole estimate NaN."""
 
     def __init__(self, table, block, mode: str = "drop", stride=None, missing: str = "fallback"):
-        if mode in OLD_MODES:
-            warnings.warn(f"BDM mode {mode!r} is now called {OLD_MODES[mode]!r}; the old name goes in the "
-                          "next release", DeprecationWarning, stacklevel=2)
-            mode = OLD_MODES[mode]
         if mode not in MODES:
             raise CtmtabError(f"unknown BDM mode {mode!r}; use one of {', '.join(MODES)}")
         self.table = table

@@ -14,14 +14,14 @@ import time
 from pathlib import Path
 
 from .._version import __version__
+from ..model.bounds import STEP_BOUNDS
 from ..model.deciders import DECIDERS
-from ..errors import CtmtabError, OutputError, RareKeyWarning
+from ..errors import DEFAULT_MIN_SEEN, CtmtabError, OutputError, RareKeyWarning
+from ..extras import require
 
-DEFAULT_MIN_SEEN = 10  # the reader's default too (tables.table.DEFAULT_MIN_SEEN)
-
-# Known busy beaver step counts S(n, m), the default cap where one is known
-# (REFERENCES.md: OEIS A060843; Lafitte & Papazian 2007 for (2,3)).
-KNOWN_CAPS = {(1, 2): 1, (2, 2): 6, (3, 2): 21, (4, 2): 107, (2, 3): 38}
+# build's default cap: the proven busy beaver value S(n, m) (model/bounds.py) up to this many
+# steps. Longer ones are asked for by --max-steps (the exact (5,2) build takes 51 minutes on 2 cores).
+DEFAULT_CAP_LIMIT = 1000
 
 
 class _Parser(argparse.ArgumentParser):
@@ -76,7 +76,8 @@ def _space_args(p):
     p.add_argument("--states", type=int, default=None, help="working states n >= 1; default 3")
     p.add_argument("--symbols", type=int, default=None, help="symbols m >= 2; default 2")
     p.add_argument("--max-steps", type=int, default=None,
-                   help="step cap T; default the busy beaver value S(n) where known")
+                   help=f"step cap T; default the busy beaver value S(n, m) where it is known and at most "
+                        f"{DEFAULT_CAP_LIMIT:,}")
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -309,9 +310,13 @@ def cmd_build(a) -> int:
     space = Space(a.dims, a.states, a.symbols)
     cap = a.max_steps
     if cap is None:
-        cap = KNOWN_CAPS.get((a.states, a.symbols)) if a.dims == 1 else None
-        if cap is None:
+        bound = STEP_BOUNDS.get((a.states, a.symbols)) if a.dims == 1 else None
+        if bound is None:
             raise CtmtabError(f"no busy beaver value is known for {space.label}; give --max-steps")
+        if bound[0] > DEFAULT_CAP_LIMIT:
+            raise CtmtabError(f"the busy beaver value of {space.label} is {bound[0]:,} steps, too long a cap to take "
+                              f"unasked; give --max-steps {bound[0]} for the exact table, or a shorter cap")
+        cap = bound[0]
     deciders = _deciders(a.deciders)
     shard = _shard(a.shard)
     if sampled and shard:
@@ -712,6 +717,7 @@ def cmd_validate(a) -> int:
     from ..tables import load
     from .validate import resolve, shapes_from_text, validate, values_from_csv
 
+    require("scipy.stats", *(["matplotlib"] if a.plot else []))  # before any work
     if a.worst < 0:
         raise CtmtabError(f"--worst {a.worst} is negative; give 0 or more")
     if a.plot:
@@ -761,6 +767,7 @@ def cmd_plot(a) -> int:
     from ..tables import load
     from .plots import plot_table
 
+    require("matplotlib")
     _output_dir(a.output_dir)
     for path in plot_table(load(a.table), a.output_dir):
         print(path)

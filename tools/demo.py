@@ -11,6 +11,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..extras import require
 from ..tables import load
 from .baselines import compressed_bits
 from .bdm import BDM
@@ -37,6 +38,7 @@ def invented_volunteers(seed: int = 2026) -> dict:
 
 
 def run(folder="ctmtab-demo", out=print) -> dict:
+    require("matplotlib", "scipy.stats")  # before any output: it draws and correlates
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     table = load("1d-n5-m2-t500")

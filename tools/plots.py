@@ -7,9 +7,11 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import CtmtabError
+from ..extras import require
 
 
 def _plt():
+    require("matplotlib")  # the [plot] extra: one line naming it, not a traceback
     import matplotlib
 
     matplotlib.use("Agg")

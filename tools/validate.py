@@ -9,6 +9,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import CtmtabError
+from ..extras import require
 from ..tables import keys
 from .baselines import CODECS, block_entropy, compressed_bits
 
@@ -192,6 +193,7 @@ def validate(table, estimator=None, values: dict | None = None, sizes=None, wors
     estimator (a callable on the key text) or with given values, against the exact CTM."""
     if (estimator is None) == (values is None):
         raise CtmtabError("give an estimator or a values file, not both")
+    require("scipy.stats")  # the [stats] extra, checked before the scoring
     if values is not None:
         values = canonical_values(table, values)
     shapes = table.shapes if sizes is None else [(s,) if isinstance(s, int) else tuple(s) for s in sizes]

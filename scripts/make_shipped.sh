@@ -1,7 +1,8 @@
 #!/usr/bin/env bash
-# Rebuild the tables that ship inside the package (run from the repository root on a
-# machine with at least 2 cores; the last builds take minutes, the optional (6,2) one hours).
+# Rebuild the tables that ship inside the package (on a machine with at least 2 cores; the
+# last builds take minutes, the optional (6,2) one hours). Paths are from the repository root.
 set -euo pipefail
+cd "$(dirname "$0")/.."
 note() { echo "shipped with ctmtab; cap $1"; }
 for spec in "1 1" "2 6" "3 21" "4 107"; do
     set -- $spec
@@ -44,7 +45,7 @@ ctmtab build --dims 2 --states 5 --symbols 2 --max-steps 100 --keep-size 4 \
     --notes "$(note "100, keys kept up to 4x4: every 4x4 array, from every machine")" -q
 # 1D (6,2) at cap 1,000, keys kept up to length 18: about 6 CPU-hours, so it is built as 16
 # resumable shards (run.sh; any mix of machines, rerun it until all 16 files exist), then merged
-# and verified (finish.sh). Skipped unless asked for: CTMTAB_WITH_6=1 tables/make_shipped.sh
+# and verified (finish.sh). Skipped unless asked for: CTMTAB_WITH_6=1 scripts/make_shipped.sh
 if [ "${CTMTAB_WITH_6:-0}" = 1 ]; then
     CTMTAB_BUILDER="ctmtab project" shards/1d-n6-m2-t1000/run.sh
     CTMTAB_BUILDER="ctmtab project" shards/1d-n6-m2-t1000/finish.sh

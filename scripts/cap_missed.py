@@ -1,6 +1,6 @@
 """What the cap-500 1D (5,2) table misses, against the exact one (docs/BUILDS.md, "What cap 500 missed").
 
-python3 docs/cap_missed.py  -- prints the figures docs/BUILDS.md gives, from the two shipped tables."""
+python3 scripts/cap_missed.py  -- prints the figures docs/BUILDS.md gives, from the two shipped tables."""
 import math
 from collections import Counter
 
