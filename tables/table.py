@@ -115,13 +115,8 @@ class Table:
         rows = np.ascontiguousarray(rows, dtype=np.uint8).reshape(len(rows), -1)
         if g is None:
             return np.zeros(len(rows))
-        vals = np.asarray(g.counts, dtype=np.float64)
-        if g.codes is not None:
-            codes = codes_of(rows, self.space.symbols)
-            pos = np.minimum(np.searchsorted(g.codes, codes), len(g.codes) - 1)
-            return np.where(g.codes[pos] == codes, vals[pos], 0.0)
-        index = {r.tobytes(): i for i, r in enumerate(g.symbols)}  # few keys: no cache
-        return np.array([vals[index[r.tobytes()]] if r.tobytes() in index else 0.0 for r in rows])
+        pos = self._position(tuple(shape), rows, late=True)
+        return np.where(pos >= 0, np.asarray(g.counts, dtype=np.float64)[np.maximum(pos, 0)], 0.0)
 
     @property
     def streams(self) -> list:
@@ -212,9 +207,10 @@ class Table:
         """The one spelling of a key (tables/keys.py); parse_key reads it back as itself."""
         return keytext.write(self.space.symbols, shape, row)
 
-    def _position(self, shape: tuple, rows: np.ndarray) -> np.ndarray:
-        """Index of each row in its group, -1 where absent."""
-        g = self.groups.get(shape)
+    def _position(self, shape: tuple, rows: np.ndarray, late: bool = False) -> np.ndarray:
+        """Index of each row in its group (late: in the run-on's halts past the cap), -1 where
+        absent."""
+        g = (self.late if late else self.groups).get(shape)
         if g is None:
             return np.full(len(rows), -1, dtype=np.int64)
         if g.codes is not None:
@@ -222,9 +218,9 @@ class Table:
             pos = np.searchsorted(g.codes, codes)
             pos[pos == len(g.codes)] = 0
             return np.where(g.codes[pos] == codes, pos, -1)
-        index = self._index.get(shape)
+        index = self._index.get((late, shape))
         if index is None:
-            index = self._index[shape] = {r.tobytes(): i for i, r in enumerate(g.symbols)}
+            index = self._index[late, shape] = {r.tobytes(): i for i, r in enumerate(g.symbols)}
         return np.array([index.get(r.tobytes(), -1) for r in rows], dtype=np.int64)
 
     def _find(self, key) -> tuple[tuple, int]:
@@ -319,7 +315,7 @@ class Table:
         in [c, c + U] and the true halting total in [H, H + U], U = undecided runs).
         Sampled tables: an approximate 95% interval from the standard error (not certified)."""
         self.require_halting()
-        shape = self.parse_key(key)[0]
+        shape, row = self.parse_key(key)
         if self.dropped(shape):  # bounded below only
             return self.dropped_bound(shape), math.inf
         if self.mode == "sampled":
@@ -329,9 +325,9 @@ class Table:
             sampled.warn_rare(self, key, c)
             low, high = sampled.interval95(np.float64(c / self.total), np.float64(sampled.standard_error(self, key)))
             return float(low), float(high)
-        shape, pos = self._find(key)
+        pos = int(self._position(shape, row[None, :])[0])
         c = 0 if pos < 0 else int(self.groups[shape].counts[pos])
-        low, high = self._certified(shape, [c], self.parse_key(key)[1][None, :])
+        low, high = self._certified(shape, [c], row[None, :])
         return float(low[0]), float(high[0])
 
     def undecided_reach(self, shape) -> int:

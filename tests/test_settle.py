@@ -250,6 +250,9 @@ def test_the_command_line_builds_shows_and_refuses_run_ons(tmp_path):
     assert r.returncode == 0, r.stderr
     info = ctm("info", out).stdout
     assert "settled    keys up to size 12" in info
+    # the undecided count in the certificate is the cap's: info must not call it what remains
+    nodes = load(out).certificate.nodes
+    assert f"{nodes:,} tree nodes were undecided at the cap" in info and "tree nodes remain" not in info
     rows = json.loads(ctm("lookup", out, "0110", "0" * 13, "--missing", "nan", "--json").stdout)
     assert rows[0]["settled"] is True and rows[1]["settled"] is False
     assert "settled" in ctm("lookup", out, "01010101").stdout

@@ -529,6 +529,9 @@ def _certificate_lines(t) -> list:
     elif t.exact:
         out.append("  exact      every run halted or was proven non-halting by the proofs below, no step "
                    "bound used: intervals are points")
+    elif cert.settle is not None and any(cert.settle["nodes"]):  # the count is the cap's, before the run-on
+        out.append(f"  undecided  {cert.nodes:,} tree nodes were undecided at the cap; the run-on settled those "
+                   f"within size {cert.settle['size']} (list the cap's with build --holdouts)")
     else:
         out.append(f"  undecided  {cert.nodes:,} tree nodes remain (list them with build --holdouts)")
     if cert.settle is not None:
