@@ -21,8 +21,8 @@ class Partial:
     halting: int = 0
     non_halting: int = 0
     undecided: int = 0
-    hist_steps: list = field(default_factory=list)
-    hist_len: list = field(default_factory=list)
+    steps_hist: list = field(default_factory=list)  # the units' "hist_steps"
+    length_hist: list = field(default_factory=list)  # the units' "hist_len"
     halting_nodes: int = 0
     longest_run: int = 0
     most_nonblank: int = 0
@@ -58,8 +58,8 @@ class Partial:
         self.late_proven += unit.get("late_proven", 0)
         add_lists(self.late_nodes, unit.get("late_nodes", []))
         self.late_steps += unit.get("late_steps", 0)
-        add_lists(self.hist_steps, unit["hist_steps"])
-        add_lists(self.hist_len, unit["hist_len"])
+        add_lists(self.steps_hist, unit["hist_steps"])
+        add_lists(self.length_hist, unit["hist_len"])
         self.longest_run = max(self.longest_run, unit["longest_run"])
         self.most_nonblank = max(self.most_nonblank, unit["most_nonblank"])
 
@@ -223,8 +223,8 @@ def tally_from_sample(space: Space, cap: int, part: Partial, samples: int, seed:
         moments[shape] = dict(zip(keys, s2))
     extra.setdefault("streams", [(seed, samples)])
     tally = Tally(space=space, cap=cap, groups=groups, halting=part.halting, non_halting=part.non_halting,
-                undecided=part.undecided, halting_nodes=0, steps_hist=trim_hist(part.hist_steps),
-                length_hist=trim_hist(part.hist_len), longest_run=part.longest_run,
+                undecided=part.undecided, halting_nodes=0, steps_hist=trim_hist(part.steps_hist),
+                length_hist=trim_hist(part.length_hist), longest_run=part.longest_run,
                 most_nonblank=part.most_nonblank, steps=part.steps, mode="sampled", samples=samples,
                 seed=seed, moments=moments, weight=samples, covered=None, **extra)
     tally.record_proofs(part)
@@ -254,8 +254,8 @@ def tally_from_partial(space: Space, cap: int, part: Partial, max_size: int | No
         non_halting=part.non_halting,
         undecided=part.undecided,
         halting_nodes=part.halting_nodes,
-        steps_hist=trim_hist(part.hist_steps),
-        length_hist=trim_hist(part.hist_len),
+        steps_hist=trim_hist(part.steps_hist),
+        length_hist=trim_hist(part.length_hist),
         longest_run=part.longest_run,
         most_nonblank=part.most_nonblank,
         steps=part.steps,

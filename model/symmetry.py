@@ -80,3 +80,9 @@ def images_per_sample(space) -> int:
     """Keys each halting sample adds: mirror (1D) or dihedral (2D) images times symbol maps."""
     return (2 if space.dims == 1 else 8) * len(sample_perms(space.symbols))
 
+
+def images_for(dims: int, m: int, relabelling: str) -> int:
+    """images_per_sample of a table that names its relabelling ("all", or "blank-swaps" as every
+    format 1.1 file with m >= 3 expanded): the reader's check of a header."""
+    return (2 if dims == 1 else 8) * (math.factorial(m) if relabelling == "all" else m)
+

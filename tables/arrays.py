@@ -50,8 +50,10 @@ def exact_sum(counts: np.ndarray) -> int:
     return (hi << 32) + lo
 
 
-def fits_code64(m: int, length: int) -> bool:
-    return m**length <= 1 << 64
+def fits_code64(m: int, cells: int) -> bool:
+    """m^cells <= 2^64 (keys of that shape fit uint64 codes), without computing the power of a
+    hostile length."""
+    return cells <= 64 and m**cells <= 1 << 64
 
 
 def codes_of(symbols: np.ndarray, m: int) -> np.ndarray:

@@ -107,8 +107,8 @@ def tally_of(t):
     return Tally(
         space=t.space, cap=t.cap, groups=groups, halting=t.halting,
         non_halting=t.non_halting, undecided=t.undecided,
-        halting_nodes=stats.get("halting_nodes", 0), steps_hist=t.hist_steps.tolist(),
-        length_hist=t.hist_len.tolist(), longest_run=stats.get("longest_run", 0),
+        halting_nodes=stats.get("halting_nodes", 0), steps_hist=t.steps_hist.tolist(),
+        length_hist=t.length_hist.tolist(), longest_run=stats.get("longest_run", 0),
         most_nonblank=stats.get("most_nonblank", 0), steps=stats.get("steps_simulated", 0),
         deciders=tuple(t.header.get("deciders", [])), units=units.get("count", 1),
         covered=None if covered == "all" else list(covered),

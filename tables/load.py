@@ -15,10 +15,10 @@ import msgpack
 import numpy as np
 
 from ..model.space import MAX_CAP, MAX_ENTRIES
-from ..model.symmetry import FULL_RELABELLING_MAX
+from ..model.symmetry import FULL_RELABELLING_MAX, images_for
 from ..errors import InconsistentTableError, NotATableError, SizeLimitError, TableError
 from . import format as fmt
-from .arrays import U64, Hist, decode_counts, limbs_needed
+from .arrays import U64, Hist, decode_counts, fits_code64, limbs_needed
 from . import certify
 from .group import Group
 from .table import SHIPPED, Table
@@ -159,18 +159,8 @@ def _optional(header: dict, name: str, kind, where: str) -> dict:
     return value
 
 
-def fits_code64(m: int, cells: int) -> bool:
-    """m^cells <= 2^64, without computing the power of a hostile length."""
-    return cells <= 64 and m**cells <= 1 << 64
-
-
 def _key_width(m: int, cells: int) -> int:
     return 8 if fits_code64(m, cells) else cells
-
-
-def images_per_sample(dims: int, m: int, relabelling: str) -> int:
-    """What tally.images_per_sample gives a sampled table of this relabelling (1.1 files: blank swaps)."""
-    return (2 if dims == 1 else 8) * (math.factorial(m) if relabelling == "all" else m)
 
 
 def check_header(header: dict, where: str = "table") -> None:
@@ -230,7 +220,7 @@ def check_header(header: dict, where: str = "table") -> None:
         _need(relab == "blank-swaps" or (relab == "all" and m <= FULL_RELABELLING_MAX), where,
               f"the sample's relabelling {relab!r} is not 'all' (m <= {FULL_RELABELLING_MAX}) or 'blank-swaps'")
         # either expansion: 1.1 files took the blank swaps whatever m (merge.check_expansion tells them)
-        _need(sample["images_per_sample"] in {images_per_sample(dims, m, r) for r in ("blank-swaps", relab)}, where,
+        _need(sample["images_per_sample"] in {images_for(dims, m, r) for r in ("blank-swaps", relab)}, where,
               f"the sample's images_per_sample {sample['images_per_sample']} is not what a symmetry expansion gives")
         _need(sample.get("halting_samples", int(totals["halting"])) == int(totals["halting"]), where,
               "the sample's halting_samples contradicts the halting total")
@@ -440,10 +430,10 @@ def _check_body(table: Table, header: dict, where: str) -> Table:
     if table.mode == "exhaustive":
         _need(table.total == table.blanks * table.halting, where,
               "the counts do not sum to blanks x the halting total in the header")
-        _need(table.hist_steps.total() == table.halting, where, "the step histogram contradicts the halting total")
+        _need(table.steps_hist.total() == table.halting, where, "the step histogram contradicts the halting total")
     if table.cut is not None:  # what was dropped must still add up size by size, before any lookup
         per_run = table.blanks if table.mode == "exhaustive" else table.header["sample"]["images_per_sample"]
-        _need(all(total == per_run * (table.hist_len[size] if size < len(table.hist_len) else 0)
+        _need(all(total == per_run * (table.length_hist[size] if size < len(table.length_hist) else 0)
                   for size, total in table.weight_by_size().items()), where,
               "the kept and dropped counts disagree with the size histogram")
     return table

@@ -106,4 +106,4 @@ def write_csv(t, out) -> None:
 def to_json(t) -> dict:
     meta = {k: v for k, v in t.header.items() if k not in ("body",) and not k.startswith("_")}
     return {"meta": meta, "counts": dict(t.items()),
-            "hist_steps": t.hist_steps.tolist(), "hist_len": t.hist_len.tolist()}
+            "hist_steps": t.steps_hist.tolist(), "hist_len": t.length_hist.tolist()}

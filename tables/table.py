@@ -34,7 +34,7 @@ def _int_total(header: dict, name: str) -> int:
 class Table:
     """One coding-theorem table. Build one with Table.from_tally, or load a file with load()."""
 
-    def __init__(self, header: dict, groups: dict, hist_steps: list, hist_len: list, source: str = "table",
+    def __init__(self, header: dict, groups: dict, steps_hist: list, length_hist: list, source: str = "table",
                  late: dict | None = None):
         self.header = header
         self.source = source
@@ -52,8 +52,8 @@ class Table:
         self.non_halting = _int_total(header, "non_halting")
         self.undecided = _int_total(header, "undecided")
         self.groups = groups
-        self.hist_steps = Hist.of(hist_steps)  # non-zero entries only: caps run to millions of steps
-        self.hist_len = Hist.of(hist_len)
+        self.steps_hist = Hist.of(steps_hist)  # non-zero entries only: caps run to millions of steps
+        self.length_hist = Hist.of(length_hist)
         self._dense = {}
         self.min_seen = DEFAULT_MIN_SEEN
         self._index = {}
@@ -156,7 +156,7 @@ class Table:
         header = {k: v for k, v in self.header.items() if not k.startswith("_")}
         header["cut"] = cut.header_field()
         # the halts past the cap stay whole (lookups of a cut shape refuse before they read them)
-        table = Table(header, groups, self.hist_steps, self.hist_len, source=self.source, late=self.late)
+        table = Table(header, groups, self.steps_hist, self.length_hist, source=self.source, late=self.late)
         header["keys"] = table._key_summary()
         table.min_seen = self.min_seen
         return table
@@ -472,6 +472,18 @@ class Table:
 
     def __len__(self):
         return self.distinct
+
+    @property
+    def hist_steps(self):
+        """Deprecated name of steps_hist (the file keeps the key hist_steps)."""
+        warnings.warn("Table.hist_steps is now Table.steps_hist", DeprecationWarning, stacklevel=2)
+        return self.steps_hist
+
+    @property
+    def hist_len(self):
+        """Deprecated name of length_hist (the file keeps the key hist_len)."""
+        warnings.warn("Table.hist_len is now Table.length_hist", DeprecationWarning, stacklevel=2)
+        return self.length_hist
 
     # ---- building and saving (tables/convert.py, tables/write.py)
     @classmethod

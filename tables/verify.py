@@ -30,11 +30,11 @@ def problems(table: Table, notes: list | None = None) -> list[str]:
         out.append(f"the recorded space size {t.space_size} is not {t.space.label}'s {t.space.size}")
     if t.total != per_run * t.halting:
         out.append(f"the counts sum to {t.total}, not {per_run} x halting = {per_run * t.halting}")
-    if t.hist_steps.total() != t.halting:
+    if t.steps_hist.total() != t.halting:
         out.append("the halting-step histogram does not sum to the halting total")
-    if t.hist_len.total() != t.halting:
+    if t.length_hist.total() != t.halting:
         out.append("the output-size histogram does not sum to the halting total")
-    if len(t.hist_steps) > t.cap + 1:
+    if len(t.steps_hist) > t.cap + 1:
         out.append(f"the step histogram reaches past the cap {t.cap}")
     if t.mode == "sampled":
         out += _streams(t, notes)
@@ -50,7 +50,7 @@ def problems(table: Table, notes: list | None = None) -> list[str]:
                 out.append(f"the cut's record of shape {shape} differs from that of its rotation {shape[::-1]}")
     # the dropped weight is still in the size histogram, size by size
     for size, total in sorted(t.weight_by_size().items()):
-        if size >= len(t.hist_len) or total != per_run * t.hist_len[size]:
+        if size >= len(t.length_hist) or total != per_run * t.length_hist[size]:
             out.append(f"size {size}: the counts disagree with the output-size histogram")
     return out
 

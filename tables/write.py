@@ -11,8 +11,8 @@ from .group import Group
 def body(t) -> dict:
     out = {
         "groups": [group_spec(t.groups[shape]) for shape in t.shapes],
-        "hist_steps": encode_hist(t.hist_steps),
-        "hist_len": encode_hist(t.hist_len),
+        "hist_steps": encode_hist(t.steps_hist),
+        "hist_len": encode_hist(t.length_hist),
     }
     if t.late:  # since 1.6: halts past the cap (certificate "settle"), keyed as the groups
         out["late"] = [group_spec(t.late[shape]) for shape in sorted(t.late)]

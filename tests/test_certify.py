@@ -230,21 +230,21 @@ def test_a_certificate_that_contradicts_the_totals_is_refused():
     cert["undecided_by_size"] = [[1, 3, str(t.undecided + 1)]]
     header["certificate"] = cert
     with pytest.raises(InconsistentTableError):
-        Table(header, t.groups, t.hist_steps, t.hist_len)
+        Table(header, t.groups, t.steps_hist, t.length_hist)
     cert["undecided_by_size"], cert["step_bound"] = [], {"steps": 5, "source": "x"}
     with pytest.raises(InconsistentTableError):
-        Table(header, t.groups, t.hist_steps, t.hist_len)
+        Table(header, t.groups, t.steps_hist, t.length_hist)
     cert["step_bound"] = None
     for size in ([2, 3], [1, 12]):  # 1D has one row; 10 steps reach at most 11 cells
         cert["undecided_by_size"] = [size + [str(t.undecided)]]
         with pytest.raises(InconsistentTableError, match="cannot arise"):
-            Table(header, t.groups, t.hist_steps, t.hist_len)
+            Table(header, t.groups, t.steps_hist, t.length_hist)
 
 
 def test_a_table_without_certificate_falls_back_to_the_total():
     t = Table.from_tally(build(Space(1, 3, 2), 10))
     header = {k: v for k, v in t.header.items() if k != "certificate"}
-    old = Table(header, t.groups, t.hist_steps, t.hist_len)
+    old = Table(header, t.groups, t.steps_hist, t.length_hist)
     c, u, h = old.count("010"), old.undecided_runs, old.total
     assert old.interval("010")[0] == pytest.approx(np.log2(h + u) - np.log2(c + u))
 

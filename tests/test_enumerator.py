@@ -209,7 +209,7 @@ def test_shipped_exact_five_state_table():
     stats = t.header["stats"]
     assert stats["halting_nodes"] == 48_379_894
     assert stats["longest_run"] == 47_176_870 and stats["most_nonblank"] == 4_098
-    assert t.hist_steps[47_176_870] > 0 and len(t.hist_steps) == 47_176_871
+    assert t.steps_hist[47_176_870] > 0 and len(t.steps_hist) == 47_176_871
     champion = run("1RB1LC_1RC1RB_1RD0LE_1LA1LD_1RZ0LA", 10**8)  # the one-machine simulator
     assert champion.steps == 47_176_870 and t.count("".join(map(str, champion.output))) >= 1
     # a longer cap only adds halts: every count of the cap-500 table is at most the exact one

@@ -21,7 +21,7 @@ def test_round_trip_keeps_every_count():
     assert dict(t.items()) == {"".join(map(str, k)): c for g in tally.groups.values() for k, c in g.items()}
     assert (t.halting, t.non_halting, t.undecided, t.space_size) == (
         tally.halting, tally.non_halting, tally.undecided, Space(1, 3, 2).size)
-    assert t.hist_steps == tally.steps_hist and t.hist_len == tally.length_hist
+    assert t.steps_hist == tally.steps_hist and t.length_hist == tally.length_hist
     assert problems(t) == []
 
 

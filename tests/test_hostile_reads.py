@@ -453,9 +453,9 @@ def test_a_long_step_histogram_is_stored_sparse_and_reads_back_exactly():
     t = load("1d-n2-m4-t3932964-exact")
     data = _sparse_steps_bytes()
     body = msgpack.unpackb(zstandard_decompress(data), raw=False)
-    assert "at" in body["hist_steps"] and len(body["hist_steps"]["at"]) < len(t.hist_steps)
+    assert "at" in body["hist_steps"] and len(body["hist_steps"]["at"]) < len(t.steps_hist)
     back = loads(data)
-    assert back.hist_steps == t.hist_steps and sum(back.hist_steps) == back.halting
+    assert back.steps_hist == t.steps_hist and sum(back.steps_hist) == back.halting
     assert problems(back) == []
 
 

@@ -20,7 +20,7 @@ def test_exact_two_state_four_symbol_table():
     # arXiv:2509.12337 (verified): S(2,4) = 3,932,964 and the champion leaves 2,050 non-zero cells
     assert t.header["stats"]["longest_run"] == 3_932_964
     assert t.header["stats"]["most_nonblank"] == 2_050
-    assert len(t.hist_steps) == 3_932_964 + 1 and t.hist_steps[-1] > 0
+    assert len(t.steps_hist) == 3_932_964 + 1 and t.steps_hist[-1] > 0
     assert t.undecided == 0 and t.exact and t.certificate.step_bound["steps"] == 3_932_964
     assert max(row["widest"] for row in t.interval_widths()) == 0.0
     # the champion's own output is among the keys (its run by the one-machine simulator)
@@ -51,3 +51,14 @@ def test_shipped_multi_symbol_tables_rebuild_key_by_key(name):
     fresh = build(space, t.cap, workers=2, budget_hours=None)
     assert (fresh.halting, fresh.non_halting, fresh.undecided) == (t.halting, t.non_halting, t.undecided)
     assert dict(t.items()) == {t.key_text(s, bytes(k)): c for s, g in fresh.groups.items() for k, c in g.items()}
+
+
+def test_the_reader_and_the_sampler_agree_on_images_per_sample():
+    # two derivations of one number: the reader's closed form (model.symmetry.images_for, from a
+    # header's relabelling) and the sampler's count of the maps it applies (sample_perms)
+    from ctmtab.model.symmetry import images_for, images_per_sample, relabelling
+
+    for dims in (1, 2):
+        for m in range(2, 10):
+            space = Space(dims, 2, m)
+            assert images_for(dims, m, relabelling(m)) == images_per_sample(space)

@@ -17,7 +17,7 @@ def main(paths):
         halting += t.halting
         undecided += t.undecided
         space = t.space_size
-        for step, weight in t.hist_steps.items():
+        for step, weight in t.steps_hist.items():
             by_step[step] += weight
         for _rows, span, weight in t.certificate.by_size:
             by_span[span] += weight
