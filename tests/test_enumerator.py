@@ -191,6 +191,8 @@ def test_every_core_error_code_has_its_own_class():
         core.run_unit(1, 5, 5, 10, 15)
     with pytest.raises(CoreArgumentError, match="invalid argument"):
         core.run_unit(1, 2, 2, 10, 15, (99,))
+    with pytest.raises(CoreArgumentError, match="invalid argument"):  # 512: neither a decider nor relabel
+        core.run_unit(1, 2, 2, 10, 512)
     assert issubclass(CoreArgumentError, CtmtabError) and CoreArgumentError("x").exit_code == 2
     r = core.sample_unit(1, 5, 5, 100, 15, 7, 100)  # sampling counts samples: no 128-bit bound
     assert r["halting"] + r["non_halting"] + r["undecided"] == 100

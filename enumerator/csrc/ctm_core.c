@@ -50,7 +50,7 @@ int ctm_unit_init(ctm_unit *u) {
     memset(&u->res, 0, sizeof u->res);
     memset(&u->ws, 0, sizeof u->ws);
     const ctm_options *o = &u->opt;
-    if ((unsigned)o->mode > CTM_MODE_SAMPLE) return CTM_EINVAL;
+    if ((unsigned)o->mode > CTM_MODE_SAMPLE || (o->deciders & ~CTM_DEC_ALL)) return CTM_EINVAL;
     if (o->dims != 1 && o->dims != 2) return CTM_EINVAL;
     if (o->n < 1 || o->m < 2 || o->cap < 1 || o->n * o->m > CTM_MAX_ENTRIES || o->m > 255)
         return CTM_EINVAL;
@@ -63,12 +63,12 @@ int ctm_unit_init(ctm_unit *u) {
         return CTM_EINVAL;
     u->ws.dec = o->deciders;
     u->ws.cps_at = o->mode == CTM_MODE_SAMPLE ? 0 : o->cps_at; /* samples: few reach the cap, none is weighted */
-    u->ws.nent = u->opt.n * u->opt.m;
+    u->ws.nent = o->n * o->m;
     u->ws.used = 1;
-    for (int s = 0; s < u->opt.n; s++) u->ws.sb_state[s * u->opt.m] = (uint8_t)s;
-    int ndir = u->opt.dims == 1 ? 2 : 4;
-    ctm_count opts = (ctm_count)(ndir * u->opt.n * u->opt.m + u->opt.m);
-    ctm_count limit = ~(ctm_count)0 / (16 * (ctm_count)u->opt.m); /* room for symmetry and blanks */
+    for (int s = 0; s < o->n; s++) u->ws.sb_state[s * o->m] = (uint8_t)s;
+    int ndir = o->dims == 1 ? 2 : 4;
+    ctm_count opts = (ctm_count)(ndir * o->n * o->m + o->m);
+    ctm_count limit = ~(ctm_count)0 / (16 * (ctm_count)o->m); /* room for symmetry and blanks */
     u->ws.pow_opts[0] = 1;
     /* exhaustive weights need opts^nent in 128 bits; sampling counts samples and does not */
     for (int k = 1; k <= u->ws.nent; k++) {
@@ -80,19 +80,19 @@ int ctm_unit_init(ctm_unit *u) {
         u->ws.pow_opts[k] = u->ws.pow_opts[k - 1] * opts;
     }
     u->ws.factor[0] = 1;
-    if (u->opt.dims == 1) {
+    if (o->dims == 1) {
         /* the tape has CTM_REC_WINDOW cells of padding for the record windows */
-        u->ws.tape_len = 2 * u->opt.cap + 3 + 2 * CTM_REC_WINDOW;
+        u->ws.tape_len = 2 * o->cap + 3 + 2 * CTM_REC_WINDOW;
         u->ws.stride = 0;
-        u->ws.origin_x = u->opt.cap + 1 + CTM_REC_WINDOW;
+        u->ws.origin_x = o->cap + 1 + CTM_REC_WINDOW;
         u->ws.origin_y = 0;
         u->ws.factor[1] = 2;
         u->ws.dx[CTM_R] = 1; u->ws.dx[CTM_L] = -1;
         u->ws.dh[CTM_R] = 1; u->ws.dh[CTM_L] = -1;
     } else {
-        u->ws.stride = 2 * u->opt.cap + 3;
+        u->ws.stride = 2 * o->cap + 3;
         u->ws.tape_len = u->ws.stride * u->ws.stride;
-        u->ws.origin_x = u->ws.origin_y = u->opt.cap + 1;
+        u->ws.origin_x = u->ws.origin_y = o->cap + 1;
         u->ws.factor[1] = 4;
         u->ws.factor[2] = 8;
         int64_t s = u->ws.stride;
@@ -111,8 +111,8 @@ int ctm_unit_init(ctm_unit *u) {
     u->ws.snap = calloc((size_t)u->ws.tape_len, 1);
     u->ws.scratch_cap = 4096;
     u->ws.scratch = malloc(u->ws.scratch_cap);
-    u->res.hist_steps = calloc((size_t)u->opt.cap + 1, sizeof(ctm_count));
-    u->res.hist_len = calloc((size_t)u->opt.cap + 2, sizeof(ctm_count));
+    u->res.hist_steps = calloc((size_t)o->cap + 1, sizeof(ctm_count));
+    u->res.hist_len = calloc((size_t)o->cap + 2, sizeof(ctm_count));
     int rc = ctm_map_init(&u->res.raw); /* u->res.undec is made at the first undecided node */
     if (rc || !u->ws.tape || !u->ws.snap || !u->ws.scratch || !u->res.hist_steps || !u->res.hist_len) {
         ctm_unit_free(u);
