@@ -20,7 +20,7 @@ core = Extension(
              "enumerator/csrc/ctm_prove.c"],
     depends=["enumerator/csrc/ctm_core.h", "enumerator/csrc/ctm_count.h", "enumerator/csrc/ctm_search.inc"],
     include_dirs=["enumerator"],
-    extra_compile_args=["-O3", "-std=gnu99"],
+    extra_compile_args=["-O3", "-std=gnu99", "-Wall", "-Wextra"],
 )
 
 setup(

@@ -5,6 +5,15 @@ from libc.stdint cimport uint8_t, int8_t, int16_t, uint16_t, uint32_t, int64_t, 
 from libc.stdlib cimport malloc, free
 from libc.string cimport memset
 
+# gcc's -Warray-bounds misfires on the PyObject casts of Python's headers in this generated file
+# (not in csrc/, which compiles clean with -Wall -Wextra): silenced here, for this file alone.
+cdef extern from *:
+    """
+    #if defined(__GNUC__) && !defined(__clang__)
+    #pragma GCC diagnostic ignored "-Warray-bounds"
+    #endif
+    """
+
 cdef extern from "csrc/ctm_core.h" nogil:
     ctypedef struct ctm_count:
         pass
@@ -14,6 +23,11 @@ cdef extern from "csrc/ctm_core.h" nogil:
     int CTM_MAX_ENTRIES
     int CTM_MAX_CAP_2D
     int CTM_DEC_COUNT
+    unsigned CTM_DEC_BIT(int d)
+    unsigned CTM_SEARCH_RELABEL
+    int CTM_ENTRY_UNDEF, CTM_ENTRY_MOVE, CTM_ENTRY_HALT
+    int CTM_R, CTM_L, CTM_N, CTM_E, CTM_S, CTM_W
+    const char *ctm_decider_name(int d)
     size_t CTM_HOLDOUT_BYTES(int nent)
     const char *ctm_strerror(int code)
     ctypedef struct ctm_map:
@@ -23,29 +37,34 @@ cdef extern from "csrc/ctm_core.h" nogil:
         ctm_count *vals
         size_t cap, size
         uint8_t *arena
-    ctypedef struct ctm_unit:
+    ctypedef enum ctm_mode:
+        CTM_MODE_FULL, CTM_MODE_PLAN, CTM_MODE_PROBE, CTM_MODE_SAMPLE
+    ctypedef struct ctm_options:
         int dims
         int n, m
         int64_t cap
+        ctm_mode mode
         unsigned deciders
+        int relabel
         int cut_depth
         int prefix_len
         const uint16_t *prefix
-        uint64_t probe_seed
+        uint64_t seed
         int64_t keep_size
         int64_t settle_size
+        int keep_holdouts
+        int64_t cps_at
+    ctypedef struct ctm_results:
         ctm_map raw
-        ctm_map late
-        ctm_count late_halting, late_proven
-        uint64_t late_nodes[3]
-        uint64_t late_steps
         ctm_map cut
         ctm_count halting, non_halting, undecided
         ctm_count proven[5]
         uint64_t proven_nodes[5]
         ctm_map undec
-        int keep_holdouts
-        int64_t cps_at
+        ctm_map late
+        ctm_count late_halting, late_proven
+        uint64_t late_nodes[3]
+        uint64_t late_steps
         uint8_t *holdouts
         size_t n_holdouts
         ctm_count *hist_steps
@@ -58,8 +77,9 @@ cdef extern from "csrc/ctm_core.h" nogil:
         ctm_count *cut_weights
         size_t n_cuts
         double est_nodes, est_steps
-        uint64_t rng
-        double probe_factor
+    ctypedef struct ctm_unit:  # its workspace, ws, is the core's own
+        ctm_options opt
+        ctm_results res
     int ctm_unit_init(ctm_unit *u)
     int ctm_unit_run(ctm_unit *u)
     int ctm_sample(ctm_unit *u, uint64_t count)
@@ -101,6 +121,12 @@ MAX_ENTRIES = CTM_MAX_ENTRIES
 MAX_CAP_2D = CTM_MAX_CAP_2D
 NX_HALT = CTM_NX_HALT
 NX_UNDEF = CTM_NX_UNDEF
+# The C core's decider bits by name, in the order of its proven[] (enumerator/deciders.py keeps
+# a copy for readers without the core; a test compares the two).
+DECIDERS = {ctm_decider_name(d).decode(): CTM_DEC_BIT(d) for d in range(CTM_DEC_COUNT)}
+SEARCH_RELABEL = CTM_SEARCH_RELABEL
+ENTRY_MOVE = CTM_ENTRY_MOVE  # def[e] of a MOVE in holdout records and cps_prove
+MOVES = {1: {CTM_R: "R", CTM_L: "L"}, 2: {CTM_N: "N", CTM_E: "E", CTM_S: "S", CTM_W: "W"}}  # mv[e]
 
 
 from ctmtab.errors import (CoreArgumentError, CoreMemoryError, CoreOverflowError, CoreStoppedError,
@@ -130,15 +156,17 @@ cdef object _int(const ctm_count *x):
 cdef int64_t CPS_AT = 128
 
 
-cdef _setup(ctm_unit *u, int dims, int n, int m, int64_t cap, unsigned deciders):
+cdef _setup(ctm_unit *u, ctm_mode mode, int dims, int n, int m, int64_t cap, unsigned bits):
+    """The options of a unit; bits: the decider bits, plus SEARCH_RELABEL for the relabelling."""
     memset(u, 0, sizeof(ctm_unit))
-    u.dims = dims
-    u.n = n
-    u.m = m
-    u.cap = cap
-    u.deciders = deciders
-    u.cut_depth = -1
-    u.cps_at = CPS_AT if cap > CPS_AT else 0
+    u.opt.mode = mode
+    u.opt.dims = dims
+    u.opt.n = n
+    u.opt.m = m
+    u.opt.cap = cap
+    u.opt.deciders = bits & ~CTM_SEARCH_RELABEL
+    u.opt.relabel = (bits & CTM_SEARCH_RELABEL) != 0
+    u.opt.cps_at = CPS_AT if cap > CPS_AT else 0
 
 
 cdef dict _map_items(ctm_map *mp):
@@ -163,33 +191,33 @@ cdef list _hist(ctm_count *h, int64_t n):
 cdef dict _result(ctm_unit *u, int64_t cap):
     cdef int64_t i
     cdef int k
-    raw = _map_items(&u.raw)
+    raw = _map_items(&u.res.raw)
     undec = {}
-    for key, w in _map_items(&u.undec).items():
+    for key, w in _map_items(&u.res.undec).items():
         undec[(int.from_bytes(key[:4], "little"), int.from_bytes(key[4:], "little"))] = w
     return dict(
-        proven=[_int(&u.proven[k]) for k in range(CTM_DEC_COUNT)],
-        proven_nodes=[int(u.proven_nodes[k]) for k in range(CTM_DEC_COUNT)],
+        proven=[_int(&u.res.proven[k]) for k in range(CTM_DEC_COUNT)],
+        proven_nodes=[int(u.res.proven_nodes[k]) for k in range(CTM_DEC_COUNT)],
         undecided_by_size=undec,
         raw=raw,
-        cut=_map_items(&u.cut),
-        halting=_int(&u.halting),
-        non_halting=_int(&u.non_halting),
-        undecided=_int(&u.undecided),
+        cut=_map_items(&u.res.cut),
+        halting=_int(&u.res.halting),
+        non_halting=_int(&u.res.non_halting),
+        undecided=_int(&u.res.undecided),
         # no entry lies past the longest run (an output has at most steps + 1 cells): a cap of
         # millions of steps leaves megabytes of untouched zeros that are not worth scanning
-        hist_steps=_hist(u.hist_steps, min(cap + 1, u.longest_run + 1)),
-        hist_len=_hist(u.hist_len, min(cap + 2, u.longest_run + 2)),
-        halting_nodes=int(u.halting_nodes),
-        undecided_nodes=int(u.undecided_nodes),
-        longest_run=int(u.longest_run),
-        most_nonblank=int(u.most_nonblank),
-        steps=int(u.steps),
-        late=_map_items(&u.late),
-        late_halting=_int(&u.late_halting),
-        late_proven=_int(&u.late_proven),
-        late_nodes=[int(u.late_nodes[k]) for k in range(3)],
-        late_steps=int(u.late_steps),
+        hist_steps=_hist(u.res.hist_steps, min(cap + 1, u.res.longest_run + 1)),
+        hist_len=_hist(u.res.hist_len, min(cap + 2, u.res.longest_run + 2)),
+        halting_nodes=int(u.res.halting_nodes),
+        undecided_nodes=int(u.res.undecided_nodes),
+        longest_run=int(u.res.longest_run),
+        most_nonblank=int(u.res.most_nonblank),
+        steps=int(u.res.steps),
+        late=_map_items(&u.res.late),
+        late_halting=_int(&u.res.late_halting),
+        late_proven=_int(&u.res.late_proven),
+        late_nodes=[int(u.res.late_nodes[k]) for k in range(3)],
+        late_steps=int(u.res.late_steps),
     )
 
 
@@ -197,8 +225,8 @@ def sample_unit(int dims, int n, int m, int64_t cap, unsigned deciders, uint64_t
     """Run `count` machines drawn uniformly from the full space with the stream of `seed`."""
     cdef ctm_unit u
     cdef int rc
-    _setup(&u, dims, n, m, cap, deciders)
-    u.probe_seed = seed if seed else 1
+    _setup(&u, CTM_MODE_SAMPLE, dims, n, m, cap, deciders)
+    u.opt.seed = seed if seed else 1
     try:
         _check(ctm_unit_init(&u))
         with nogil:
@@ -213,6 +241,7 @@ def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), 
              bint holdouts=False, int64_t cps_at=-1, int64_t keep_size=0, int64_t settle_size=0):
     """Enumerate one work unit of the space (dims, n, m) under cap.
 
+    deciders: the decider bits (DECIDERS), plus SEARCH_RELABEL for the first-use symbol order.
     prefix: the move-option indices to follow through the first len(prefix)
     branch points (the unit's subtree); cut_depth >= 0 lists, instead of
     exploring, the branch points of that depth (they become their own units).
@@ -222,30 +251,30 @@ def run_unit(int dims, int n, int m, int64_t cap, unsigned deciders, prefix=(), 
     cdef uint16_t *pre = NULL
     cdef int rc, i, k = len(prefix)
     cdef size_t j
-    _setup(&u, dims, n, m, cap, deciders)
-    u.cut_depth = cut_depth
-    u.keep_holdouts = holdouts
-    u.keep_size = keep_size
-    u.settle_size = settle_size
+    _setup(&u, CTM_MODE_PLAN if cut_depth >= 0 else CTM_MODE_FULL, dims, n, m, cap, deciders)
+    u.opt.cut_depth = cut_depth
+    u.opt.keep_holdouts = holdouts
+    u.opt.keep_size = keep_size
+    u.opt.settle_size = settle_size
     if cps_at >= 0:
-        u.cps_at = cps_at
+        u.opt.cps_at = cps_at
     if k:
         pre = <uint16_t *>malloc(k * sizeof(uint16_t))
         if pre == NULL:
             raise MemoryError("out of memory")
         for i in range(k):
             pre[i] = prefix[i]
-        u.prefix = pre
-        u.prefix_len = k
+        u.opt.prefix = pre
+        u.opt.prefix_len = k
     try:
         _check(ctm_unit_init(&u))
         with nogil:
             rc = ctm_unit_run(&u)
         _check(rc)
         out = _result(&u, cap)
-        out["cuts"] = [(tuple(u.cuts[j * cut_depth + i] for i in range(cut_depth)), _int(&u.cut_weights[j]))
-                       for j in range(u.n_cuts)] if cut_depth >= 0 else []
-        out["holdouts"] = bytes(u.holdouts[:u.n_holdouts * CTM_HOLDOUT_BYTES(n * m)]) if u.n_holdouts else b""
+        out["cuts"] = [(tuple(u.res.cuts[j * cut_depth + i] for i in range(cut_depth)), _int(&u.res.cut_weights[j]))
+                       for j in range(u.res.n_cuts)] if cut_depth >= 0 else []
+        out["holdouts"] = bytes(u.res.holdouts[:u.res.n_holdouts * CTM_HOLDOUT_BYTES(n * m)]) if u.res.n_holdouts else b""
         return out
     finally:
         ctm_unit_free(&u)
@@ -260,29 +289,29 @@ def probe(int dims, int n, int m, int64_t cap, unsigned deciders, uint64_t seed,
     cdef uint16_t pre[64]
     if k > 64:
         raise ValueError("prefix too long")
-    _setup(&u, dims, n, m, cap, deciders)
-    u.probe_seed = seed if seed else 1
+    _setup(&u, CTM_MODE_PROBE, dims, n, m, cap, deciders)
+    u.opt.seed = seed if seed else 1
     for i in range(k):
         pre[i] = prefix[i]
-    u.prefix = pre
-    u.prefix_len = k
+    u.opt.prefix = pre
+    u.opt.prefix_len = k
     try:
         _check(ctm_unit_init(&u))
         with nogil:
             for w in range(walks):
-                u.probe_factor = 1.0
                 rc = ctm_unit_run(&u)
                 if rc:
                     break
         _check(rc)
-        return u.est_nodes / walks, u.est_steps / walks
+        return u.res.est_nodes / walks, u.res.est_steps / walks
     finally:
         ctm_unit_free(&u)
 
 
 def run_machine(int n, int m, const uint8_t[:] wr, const int8_t[:] mv, const int16_t[:] nx,
                 int blank, uint64_t max_steps):
-    """Run one 1D machine; returns (status, steps, state, nonblank, output, head)."""
+    """Run one 1D machine (mv: the direction index, MOVES[1]); returns (status, steps, state,
+    nonblank, output, head)."""
     cdef ctm_run_result res
     cdef int rc
     if wr.shape[0] != n * m or mv.shape[0] != n * m or nx.shape[0] != n * m:
@@ -313,7 +342,7 @@ cdef ctm_cps_ws *_ws() except NULL:
 def cps_prove(int n, int m, const int8_t[:] defined, const uint8_t[:] wr, const int8_t[:] mv,
               const uint8_t[:] nx, int attempts=-1, plan=None, bint at_cap=False, bint packed=True,
               bint bitsets=True, stage=None):
-    """n-gram CPS on one partial 1D machine (defined[e] 1 = MOVE, mv 0 = R, 1 = L):
+    """n-gram CPS on one partial 1D machine (defined[e] ENTRY_MOVE = MOVE, mv as in MOVES[1]):
     the 1-based attempt of the schedule that proved non-halting, or 0. plan: a schedule of
     (window n, history k, log2 of the configurations allowed) instead of the build's.
     at_cap: the costlier attempts a build adds at the cap (numbered after the others).

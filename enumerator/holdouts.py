@@ -11,7 +11,8 @@ from __future__ import annotations
 
 from ..model.space import Space
 
-MOVES = {1: "RL", 2: "NESW"}
+MOVES = {1: "RL", 2: "NESW"}  # by the core's direction index (its MOVES; a test compares)
+ENTRY_MOVE = 1  # def[e] of a MOVE entry (the core's CTM_ENTRY_MOVE)
 HEADER = "# machine weight step size\n"
 
 
@@ -38,7 +39,7 @@ def notation(space: Space, de, wr, mv, nx) -> str:
         parts = []
         for s in range(m):
             e = q * m + s
-            if de[e] == 1:
+            if de[e] == ENTRY_MOVE:
                 parts.append(f"{wr[e]}{moves[mv[e]]}{chr(65 + nx[e])}")
             else:
                 parts.append("---")

@@ -130,12 +130,19 @@ def _edge_escape(machine: Machine, r: "Run", blank: int) -> bool:
     return False
 
 
+def _core_moves(machine: Machine) -> np.ndarray:
+    """The moves as the core's direction indices (+1 R, -1 L; the 0 of HALT and undefined
+    entries, which the core never reads, as R)."""
+    index = {letter: k for k, letter in _core.MOVES[1].items()}
+    return np.asarray([index["L" if d < 0 else "R"] for d in machine.move], dtype=np.int8)
+
+
 def _core_run(machine: Machine, max_steps: int, blank: int) -> Run:
     status, steps, state, nonblank, output, head = _core.run_machine(
         machine.states,
         machine.symbols,
         np.asarray(machine.write, dtype=np.uint8),
-        np.asarray(machine.move, dtype=np.int8),
+        _core_moves(machine),
         np.asarray(machine.next, dtype=np.int16),
         blank,
         max_steps,

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from ..errors import CoreMissingError
 
-API_VERSION = 9  # the compiled module must match this Python code
+API_VERSION = 10  # the compiled module must match this Python code (csrc/ctm_core.h CTM_API_VERSION)
 
 _module = None
 

@@ -191,9 +191,27 @@ def test_every_core_error_code_has_its_own_class():
         core.run_unit(1, 5, 5, 10, 15)
     with pytest.raises(CoreArgumentError, match="invalid argument"):
         core.run_unit(1, 2, 2, 10, 15, (99,))
+    with pytest.raises(CoreArgumentError, match="invalid argument"):  # 512: neither a decider nor relabel
+        core.run_unit(1, 2, 2, 10, 512)
     assert issubclass(CoreArgumentError, CtmtabError) and CoreArgumentError("x").exit_code == 2
     r = core.sample_unit(1, 5, 5, 100, 15, 7, 100)  # sampling counts samples: no 128-bit bound
     assert r["halting"] + r["non_halting"] + r["undecided"] == 100
+
+
+@pytest.mark.core
+def test_python_decider_table_is_the_cores():
+    """model/deciders.py copies the core's bits by hand, so readers need no core: the copy
+    must match the compiled module name by name, bit by bit and in the order of its proofs."""
+    from ctmtab.enumerator import deciders, holdouts
+    from ctmtab.enumerator.native import core
+    assert list(deciders.DECIDERS.items()) == list(core.DECIDERS.items())
+    assert [bit for bit in core.DECIDERS.values()] == [1 << i for i in range(len(core.DECIDERS))]
+    assert deciders.SEARCH_RELABEL == core.SEARCH_RELABEL
+    assert not deciders.SEARCH_RELABEL & sum(deciders.DECIDERS.values())
+    # the holdout records, read without the core, use its entry kinds and direction indices
+    assert holdouts.ENTRY_MOVE == core.ENTRY_MOVE
+    assert {dims: "".join(letters[k] for k in sorted(letters)) for dims, letters in core.MOVES.items()} \
+        == holdouts.MOVES
 
 
 @pytest.mark.ci_slow  # heavy: the slow lane of .ci/run

@@ -93,3 +93,16 @@ def test_reader_format_and_fuzz_tests_pass_without_core(files):
     tail = r.stdout.strip().splitlines()[-1] if r.stdout.strip() else r.stderr
     assert r.returncode == 0, r.stdout[-3000:] + r.stderr[-2000:]
     assert " passed" in tail and "failed" not in tail and "error" not in tail and "skipped" not in tail, tail
+
+
+def test_a_core_of_another_api_version_is_refused_in_one_line():
+    # a module built from older sources: the version 9 of the core before its modes were explicit
+    old = """
+import sys, types
+sys.modules["ctmtab.enumerator._core"] = types.SimpleNamespace(API_VERSION=9)
+from ctmtab.enumerator.native import load
+load()
+"""
+    r = subprocess.run([sys.executable, "-c", old], capture_output=True, text=True, timeout=600)
+    last = r.stderr.strip().splitlines()[-1]
+    assert r.returncode != 0 and "API version 9" in last and "rebuild" in last, r.stderr

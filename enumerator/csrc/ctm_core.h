@@ -7,33 +7,64 @@
 #include <stddef.h>
 #include <stdint.h>
 
-#define CTM_API_VERSION 9
+#define CTM_API_VERSION 10 /* enumerator/native.py refuses a module built with another */
 
 #define CTM_OK 0
 #define CTM_ENOMEM (-1)    /* an allocation failed */
-#define CTM_EINVAL (-2)    /* bad argument: space, cap or prefix */
+#define CTM_EINVAL (-2)    /* bad argument: space, cap, mode or prefix */
 #define CTM_EOVERFLOW (-3) /* a weight does not fit 128 bits */
 #define CTM_ESTOP (-4)     /* the caller asked to stop */
 
 #define CTM_MAX_ENTRIES 64 /* n*m, the number of transition-table entries */
 #define CTM_MAX_CAP_2D 4096 /* the 2D grid is (2 cap + 3)^2 bytes */
 
-/* 2D directions; 1D uses 0 = R, 1 = L */
-#define CTM_N 0
-#define CTM_E 1
-#define CTM_S 2
-#define CTM_W 3
+/* A head move is a direction index everywhere in the core (the search, ctm_machine, the holdout
+ * records and ctm_run1d), stored in int8_t arrays. 1D uses R and L only. */
+typedef enum { CTM_R = 0, CTM_L = 1 } ctm_dir1;                      /* 1D */
+typedef enum { CTM_N = 0, CTM_E = 1, CTM_S = 2, CTM_W = 3 } ctm_dir2; /* 2D */
 
-/* decider bits */
-#define CTM_DEC_FULL 1u    /* fully defined table, no HALT entry */
-#define CTM_DEC_ESCAPE 2u  /* escapee on fresh blank tape */
-#define CTM_DEC_CYCLE 4u   /* repeated configuration */
-#define CTM_DEC_SHIFT 8u   /* translated cycler: a record configuration repeats shifted */
-#define CTM_DEC_CPS 16u    /* n-gram closed position set (1D; 2D runs still in one row at the cap) */
-#define CTM_DEC_COUNT 5    /* proof kinds counted in ctm_unit.proven, one per bit above */
-/* A search option beside the decider bits: write the non-blank symbols in
- * first-use order (relabelling them maps runs onto runs), the new one standing
- * for every unused symbol. Raw keys then carry the symbols in use. */
+/* What a transition-table entry holds (def[e] in int8_t arrays). The search only defines MOVEs
+ * (a HALT is a leaf of the branch point, never stored); sampled machines have HALT entries. */
+typedef enum {
+    CTM_ENTRY_UNDEF = 0, /* not yet chosen: a branch point, or for the provers a possible halt */
+    CTM_ENTRY_MOVE = 1,  /* write wr, move mv, go to state nx */
+    CTM_ENTRY_HALT = 2,  /* write wr and halt */
+} ctm_entry;
+
+/* The deciders, in the order of ctm_results.proven[]. Each has one bit in ctm_options.deciders;
+ * enumerator/deciders.py names the bits for Python (the name each maps to is in the comment;
+ * ctm_decider_name gives it, and a test checks that both tables agree). */
+typedef enum {
+    CTM_DECIDER_FULL_TABLE,        /* "full-table": fully defined table, no HALT entry */
+    CTM_DECIDER_ESCAPEE,           /* "escapee": runs off on fresh blank tape */
+    CTM_DECIDER_CYCLER,            /* "cycler": a configuration repeats */
+    CTM_DECIDER_TRANSLATED_CYCLER, /* "translated-cycler": a record configuration repeats shifted */
+    CTM_DECIDER_NGRAM_CPS,         /* "ngram-cps": n-gram closed position set (1D; 2D runs still in
+                                      one row at the cap) */
+    CTM_DEC_COUNT                  /* the number of deciders */
+} ctm_decider;
+#define CTM_DEC_BIT(d) (1u << (d))
+#define CTM_DEC_FULL_TABLE CTM_DEC_BIT(CTM_DECIDER_FULL_TABLE)                 /* 1 */
+#define CTM_DEC_ESCAPEE CTM_DEC_BIT(CTM_DECIDER_ESCAPEE)                       /* 2 */
+#define CTM_DEC_CYCLER CTM_DEC_BIT(CTM_DECIDER_CYCLER)                         /* 4 */
+#define CTM_DEC_TRANSLATED_CYCLER CTM_DEC_BIT(CTM_DECIDER_TRANSLATED_CYCLER)   /* 8 */
+#define CTM_DEC_NGRAM_CPS CTM_DEC_BIT(CTM_DECIDER_NGRAM_CPS)                   /* 16 */
+#define CTM_DEC_ALL (CTM_DEC_BIT(CTM_DEC_COUNT) - 1u)
+const char *ctm_decider_name(int d); /* the Python name of decider d, NULL past the last */
+
+/* How a segment ends without reaching a branch point: undecided, or proven by one decider. */
+typedef enum {
+    CTM_OUTCOME_UNDECIDED = 0,
+    CTM_OUTCOME_FULL_TABLE = 1 + CTM_DECIDER_FULL_TABLE,
+    CTM_OUTCOME_ESCAPEE = 1 + CTM_DECIDER_ESCAPEE,
+    CTM_OUTCOME_CYCLER = 1 + CTM_DECIDER_CYCLER,
+    CTM_OUTCOME_TRANSLATED_CYCLER = 1 + CTM_DECIDER_TRANSLATED_CYCLER,
+    CTM_OUTCOME_NGRAM_CPS = 1 + CTM_DECIDER_NGRAM_CPS,
+} ctm_outcome;
+#define CTM_OUTCOME_DECIDER(o) ((int)(o) - 1) /* the proof's index in proven[] */
+
+/* The bit beside the decider bits in the search word of the binding and of plan files (Python
+ * SEARCH_RELABEL): the binding turns it into ctm_options.relabel; the core never reads it. */
 #define CTM_SEARCH_RELABEL 256u
 
 #define CTM_PROBE_RUN 65536 /* probe walks simulate at most this many steps per segment */
@@ -46,7 +77,7 @@
 typedef unsigned __int128 ctm_count;
 
 /* One partial 1D machine for the provers: entry e = state*m + symbol; def[e]
- * 1 a MOVE (wr, mv 0 = R / 1 = L, nx), anything else may halt. */
+ * CTM_ENTRY_MOVE (wr, mv CTM_R / CTM_L, nx), any other kind may halt. */
 typedef struct {
     int n, m;
     const int8_t *def;
@@ -93,27 +124,48 @@ void ctm_map_free(ctm_map *map);
 int ctm_map_add(ctm_map *map, const uint8_t *key, uint32_t len, ctm_count val);
 
 /* ---- the enumeration of one work unit ---- */
+
+/* What a unit's search does. */
+typedef enum {
+    CTM_MODE_FULL = 0, /* ctm_unit_run: the whole subtree below the prefix, every leaf tallied */
+    CTM_MODE_PLAN,     /* ctm_unit_run: as FULL above cut_depth, but each branch point at that depth
+                          is listed in cuts (a unit of its own), not explored */
+    CTM_MODE_PROBE,    /* ctm_unit_run: one random root-to-leaf walk per call, into est_nodes and
+                          est_steps (Knuth's estimate); nothing is tallied */
+    CTM_MODE_SAMPLE,   /* ctm_sample: complete machines drawn uniformly, each run and tallied */
+} ctm_mode;
+
+/* Inputs: set by the caller before ctm_unit_init, never written by the core. */
 typedef struct {
-    /* inputs */
     int dims;           /* 1 or 2 */
     int n, m;           /* states, symbols */
     int64_t cap;        /* step cap T */
+    ctm_mode mode;
     unsigned deciders;  /* CTM_DEC_* bits */
-    int cut_depth;      /* >= 0: stop at branch points of this depth and list them */
+    int relabel;        /* != 0: write the non-blank symbols in first-use order (relabelling them
+                           maps runs onto runs), the new one standing for every unused symbol. Raw
+                           keys then carry the symbols in use. Needs m <= 64 */
+    int cut_depth;      /* CTM_MODE_PLAN: the depth of the branch points listed */
     int prefix_len;     /* > 0: follow prefix[] through the first prefix_len branch points */
     const uint16_t *prefix;
-    uint64_t probe_seed; /* != 0: one random root-to-leaf walk per call (Knuth estimate) */
-    int64_t keep_size;   /* > 0: a halting output longer (2D: on its longer side) than this adds
-                            only its weight to `cut`, never its cells to `raw` */
+    uint64_t seed;      /* CTM_MODE_PROBE and CTM_MODE_SAMPLE: the random stream's seed */
+    int64_t keep_size;  /* > 0: a halting output longer (2D: on its longer side) than this adds
+                           only its weight to `cut`, never its cells to `raw` */
     int64_t settle_size; /* > 0: run on every node undecided at the cap whose box (2D: both sides)
                             is at most this, past the cap, until it halts, repeats a configuration
                             or outgrows it (the run-on; at most keep_size when both are set) */
+    int keep_holdouts;  /* != 0: list every undecided node in holdouts */
+    int64_t cps_at;     /* 1D: try CPS once when a segment reaches this step (0: only at the cap;
+                           samples always try it at the cap only) */
+} ctm_options;
 
-    /* outputs: weights count machines on blank 0, mirror images included */
+/* Outputs: weights count machines on blank 0, mirror images included. ctm_unit_init zeroes them;
+ * the maps and arrays are owned by the unit and freed by ctm_unit_free. */
+typedef struct {
     ctm_map raw;         /* key = flag byte (class | symbols in use << 2) + output symbols */
     ctm_map cut;         /* keep_size: key = class byte, uint32 rows, uint32 cols -> raw weight */
     ctm_count halting, non_halting, undecided;
-    ctm_count proven[CTM_DEC_COUNT]; /* non-halting weight by the proof that gave it */
+    ctm_count proven[CTM_DEC_COUNT]; /* non-halting weight by the decider (ctm_decider) that proved it */
     uint64_t proven_nodes[CTM_DEC_COUNT]; /* tree nodes each proof closed */
     ctm_map undec;       /* undecided weight by size at the cap: key uint32 rows, uint32 cols;
                             with settle_size, a node run on is recorded where it outgrew it */
@@ -121,11 +173,8 @@ typedef struct {
     ctm_count late_halting, late_proven; /* run-on weight that halted / repeated or closed */
     uint64_t late_nodes[3]; /* run-on tree nodes: halting leaves, proven, outgrown */
     uint64_t late_steps; /* steps simulated past the cap */
-    int keep_holdouts;   /* != 0: list every undecided node in holdouts */
-    uint8_t *holdouts;   /* records of CTM_HOLDOUT_BYTES(nent) bytes */
-    size_t n_holdouts, holdouts_cap;
-    ctm_cps_ws *cps_ws;  /* owned: the CPS workspace, made at the first use */
-    int64_t cps_at;      /* 1D: try CPS once when a segment reaches this step (0: only at the cap) */
+    uint8_t *holdouts;   /* keep_holdouts: records of CTM_HOLDOUT_BYTES(nent) bytes */
+    size_t n_holdouts;
     ctm_count *hist_steps; /* [cap + 1], index = halting step */
     ctm_count *hist_len;   /* [cap + 2], index = output length */
     uint64_t halting_nodes;
@@ -133,21 +182,25 @@ typedef struct {
     int64_t longest_run;
     int64_t most_nonblank;
     uint64_t steps;      /* simulated steps, for speed figures */
-    uint16_t *cuts;      /* cut_depth paths, cut_depth entries each */
+    uint16_t *cuts;      /* CTM_MODE_PLAN: the paths of the listed units, cut_depth entries each */
     ctm_count *cut_weights; /* machines each listed unit stands for */
-    size_t n_cuts, cuts_cap;
-    double est_nodes, est_steps; /* probe mode */
+    size_t n_cuts;
+    double est_nodes, est_steps; /* CTM_MODE_PROBE: summed over the walks */
+} ctm_results;
 
-    /* private state */
+/* Private to the core: the search's state. */
+typedef struct {
+    unsigned dec;                /* the deciders in force (a sample with a HALT drops full-table) */
+    int64_t cps_at;              /* the CPS step in force (samples: 0) */
     int nent, used, ndef;
     int past_cap;                /* inside a run-on */
-    int usym;                    /* CTM_SEARCH_RELABEL: non-blank symbols written so far (1..usym) */
+    int usym;                    /* relabel: non-blank symbols written so far (1..usym) */
     int pow_overflow;            /* opts^nent passes 128 bits: sampling only */
     int sym;                     /* symmetry class of the path: 0 none yet, 1, 2 (2D) */
     ctm_count factor[3];         /* machines per class member: 1, 2 (1D) or 1, 4, 8 (2D) */
-    int8_t def[CTM_MAX_ENTRIES];
+    int8_t def[CTM_MAX_ENTRIES]; /* ctm_entry */
     uint8_t wr[CTM_MAX_ENTRIES];
-    int8_t mv[CTM_MAX_ENTRIES];  /* direction index */
+    int8_t mv[CTM_MAX_ENTRIES];  /* direction index: ctm_dir1 or ctm_dir2 */
     uint8_t nx[CTM_MAX_ENTRIES];
     uint32_t tr[CTM_MAX_ENTRIES]; /* an entry in one word, def | mv << 2 | wr << 8 | nx * m << 16
                                      (set_tr), so the 1D loop loads one word per step */
@@ -161,11 +214,13 @@ typedef struct {
     size_t scratch_cap;
     uint8_t *save_buf[CTM_MAX_ENTRIES + 1]; /* per depth: the box at the branch point */
     size_t save_cap[CTM_MAX_ENTRIES + 1];
+    size_t holdouts_cap, cuts_cap; /* room in the results' holdouts and cuts */
+    ctm_cps_ws *cps;             /* the CPS workspace, made at the first use */
     int64_t tape_len, stride, origin_x, origin_y;
     int64_t s_xlo, s_xhi, s_ylo, s_yhi; /* the cycler snapshot's box */
     int64_t t_xlo, t_xhi, t_ylo, t_yhi; /* the box a finished subtree left dirty */
     uint64_t rng;
-    double probe_factor;
+    double probe_factor;         /* CTM_MODE_PROBE: the product of the branchings on the walk */
     /* translated-cycler records (1D), per side (0 right, 1 left): a ring of the latest */
     int rec_n[2];
     int rec_state[2][CTM_REC_RING];
@@ -181,19 +236,26 @@ typedef struct {
     int64_t rec2_x[CTM_REC2_RING], rec2_y[CTM_REC2_RING];
     int64_t rec2_box[CTM_REC2_RING][4]; /* xlo, xhi, ylo, yhi */
     uint8_t rec2_cells[CTM_REC2_RING][CTM_REC2_W * CTM_REC2_W];
+} ctm_work;
+
+typedef struct {
+    ctm_options opt;
+    ctm_results res;
+    ctm_work ws;
 } ctm_unit;
 
 /* A holdout record: def, wr, mv, nx (nent bytes each), the weight (16 bytes
  * LE), the step reached, rows and cols of the box (int64 LE each). */
 #define CTM_HOLDOUT_BYTES(nent) (4 * (size_t)(nent) + 16 + 3 * 8)
 
-int ctm_unit_init(ctm_unit *u);   /* after the inputs are set */
-int ctm_unit_run(ctm_unit *u);
-int ctm_sample(ctm_unit *u, uint64_t count); /* uniform machines; seed in probe_seed */
+int ctm_unit_init(ctm_unit *u);   /* after u->opt is set; any u->res and u->ws are overwritten */
+int ctm_unit_run(ctm_unit *u);    /* CTM_MODE_FULL, CTM_MODE_PLAN, CTM_MODE_PROBE */
+int ctm_sample(ctm_unit *u, uint64_t count); /* CTM_MODE_SAMPLE: `count` more machines */
 void ctm_unit_free(ctm_unit *u);
 
 /* ---- one machine, 1D ----
- * Entry e = state*m + symbol (states 0-based). nx[e] >= 0: MOVE to that state;
+ * Entry e = state*m + symbol (states 0-based). nx[e] >= 0: MOVE to that state in direction
+ * mv[e] (CTM_R or CTM_L);
  * nx[e] == CTM_NX_HALT: HALT(wr[e]); nx[e] == CTM_NX_UNDEF: undefined. */
 #define CTM_NX_HALT (-1)
 #define CTM_NX_UNDEF (-2)

@@ -217,11 +217,11 @@ static int step_of(const cps_ctx *x, const uint16_t *cfg, uint16_t *written, int
     const int n = x->n, m = x->m;
     const uint16_t head = cfg[1 + n];
     const int e = cfg[0] * m + head % m;
-    if (x->mc->def[e] != 1) return 0; /* an entry that may halt is reachable */
+    if (x->mc->def[e] != CTM_ENTRY_MOVE) return 0; /* an entry that may halt is reachable */
     const uint32_t hist = ((uint32_t)(head / m) * (uint32_t)(x->nent + 1) + (uint32_t)(e + 1)) % x->period;
     *written = (uint16_t)(x->mc->wr[e] + (uint32_t)m * hist);
     *ns = x->mc->nx[e];
-    *right = x->mc->mv[e] == 0;
+    *right = x->mc->mv[e] == CTM_R;
     return 1;
 }
 
@@ -469,14 +469,14 @@ static int cps_packed(ctm_cps_ws *ws, const ctm_machine *mc, int n, uint32_t per
         const uint32_t head = (uint32_t)(cells >> head_at & cm);
         const uint32_t sym = m == 2 ? head & 1u : head % (uint32_t)m;
         const int e = (int)(cfg & sm) * m + (int)sym;
-        if (mc->def[e] != 1) return NOT_PROVEN; /* an entry that may halt is reachable */
+        if (mc->def[e] != CTM_ENTRY_MOVE) return NOT_PROVEN; /* an entry that may halt is reachable */
         uint32_t written = mc->wr[e];
         if (period > 1) {
             const uint32_t hist = m == 2 ? head >> 1 : head / (uint32_t)m;
             written += (uint32_t)m * ((hist * (uint32_t)(nent + 1) + (uint32_t)(e + 1)) % period);
         }
         const pkey put = (cells & ~(cm << head_at)) | (pkey)written << head_at;
-        const int right = mc->mv[e] == 0;
+        const int right = mc->mv[e] == CTM_R;
         pkey moved, gram;
         if (right) { moved = put >> b; gram = moved & gmask; }
         else { moved = (put << b) & win; gram = moved >> ((n + 1) * b); }
@@ -529,9 +529,9 @@ static inline int bits_step(const ctm_machine *mc, int n, uint32_t cf, uint32_t 
     const int cb = 2 * n + 1;
     const uint32_t cells = cf & ((1u << cb) - 1), kmask = (1u << (n - 1)) - 1;
     const int e = (int)(cf >> cb) * 2 + (int)(cells >> n & 1u);
-    if (mc->def[e] != 1) return 0;
+    if (mc->def[e] != CTM_ENTRY_MOVE) return 0;
     const uint32_t put = (cells & ~(1u << n)) | (uint32_t)mc->wr[e] << n;
-    *right = mc->mv[e] == 0;
+    *right = mc->mv[e] == CTM_R;
     const uint32_t moved = *right ? put >> 1 : (put << 1) & ((1u << cb) - 1);
     *base = (uint32_t)mc->nx[e] << cb | moved;
     *key = *right ? (cells >> (n + 2)) & kmask : cells & kmask;
@@ -597,7 +597,9 @@ static const int cps_plan[][3] = {
 int ctm_cps1d_plan(ctm_cps_ws *ws, const ctm_machine *mc, const int (*plan)[3], int len) {
     if (mc->n < 1 || mc->m < 2 || mc->n * mc->m > CTM_MAX_ENTRIES) return CTM_EINVAL;
     for (int e = 0; e < mc->n * mc->m; e++)
-        if (mc->def[e] == 1 && (mc->wr[e] >= mc->m || mc->nx[e] >= mc->n || mc->mv[e] > 1)) return CTM_EINVAL;
+        if (mc->def[e] == CTM_ENTRY_MOVE
+            && (mc->wr[e] >= mc->m || mc->nx[e] >= mc->n || (mc->mv[e] != CTM_R && mc->mv[e] != CTM_L)))
+            return CTM_EINVAL;
     for (int i = 0; i < len; i++) /* windows fit the fixed buffers of cps_once; limits fit int32 links */
         if (plan[i][0] < 1 || plan[i][0] > CTM_CPS_MAX_WINDOW || plan[i][1] < 0 || plan[i][2] < 1
             || plan[i][2] > CTM_CPS_MAX_LOG2) return CTM_EINVAL;
