@@ -70,7 +70,29 @@ def _did_you_mean(path: Path, names: list[str]) -> str:
 
 
 def load(name_or_path, *, max_body: int = fmt.MAX_BODY) -> Table:
-    """Load a table by path, or by the name of a shipped table (see shipped())."""
+    """Load and validate a table file.
+
+    Parameters
+    ----------
+    name_or_path : str or os.PathLike
+        An existing path, else the exact name of a shipped table (``shipped()`` lists them;
+        ``"1d-n5-m2-t500"``). A near miss is refused with suggestions, never loaded instead.
+    max_body : int
+        The largest decompressed body accepted, in bytes (a guard against hostile files).
+
+    Returns
+    -------
+    Table
+        Checked against its checksums, its declared sizes and every invariant the reader can
+        test cheaply; ``problems(table)`` runs the deeper checks of ``ctmtab verify``.
+
+    Raises
+    ------
+    NotATableError
+        The name is neither a path nor a shipped table, or the path is not a table file.
+    TableError
+        The file is truncated, corrupt, edited, or of a newer major format.
+    """
     path = resolve(name_or_path)
     return loads(read_file(path, max_body), max_body=max_body, where=str(path))
 

@@ -272,6 +272,7 @@ class Table:
                 "Use blocks of at most that size, or a table cut at a larger size")
 
     def probability(self, key) -> float:
+        """D(key): the key's count over the total of every count (the cut ones included)."""
         self.require_halting()
         c = self.count(key)
         sampled.warn_rare(self, key, c)
@@ -297,7 +298,24 @@ class Table:
         raise TableError(f"unknown missing-key policy {missing!r}; use one of {', '.join(MISSING_POLICIES)}")
 
     def ctm(self, key, missing: str = "raise") -> float:
-        """CTM(key) = -log2 D(key) in bits."""
+        """CTM(key) = -log2 D(key), in bits.
+
+        Parameters
+        ----------
+        key : str, bytes, sequence of int or numpy.ndarray
+            One key (see ``parse_key``).
+        missing : {"raise", "nan", "fallback"}
+            A key never produced raises MissingKeyError (the default), scores NaN, or scores
+            ``fallback()`` bits.
+
+        Returns
+        -------
+        float
+            The CTM at the table's cap. Exhaustive tables: ``interval(key)`` bounds it for an
+            unbounded runtime; sampled tables: ``standard_error(key)``, and a RareKeyWarning for
+            a key seen fewer than ``min_seen`` times. A key of a size the table dropped raises
+            DroppedKeyError (NaN with missing="nan").
+        """
         self.require_halting()
         try:
             c = self.count(key)
@@ -311,9 +329,19 @@ class Table:
         return math.log2(self.total) - math.log2(c)
 
     def interval(self, key) -> tuple[float, float]:
-        """Exhaustive tables: certified CTM bounds for an unbounded runtime (the true count lies
-        in [c, c + U] and the true halting total in [H, H + U], U = undecided runs).
-        Sampled tables: an approximate 95% interval from the standard error (not certified)."""
+        """Bounds on CTM(key), in bits.
+
+        Returns
+        -------
+        (low, high) : tuple of float
+            Exhaustive tables: certified bounds for an unbounded runtime. The true count lies in
+            [c, c + U] and the true halting total in [H, H + U], U = the undecided runs that could
+            still produce a key of this size; a key within the table's settle size adds its
+            halts past the cap, leaving only the normalisation open. Equal where exact.
+            Sampled tables: an approximate 95% interval from the standard error, not certified;
+            an unseen key gets the rule of three, (log2(H / 3), inf).
+            A key of a dropped size: (dropped_bound, inf).
+        """
         self.require_halting()
         shape, row = self.parse_key(key)
         if self.dropped(shape):  # bounded below only
@@ -363,9 +391,31 @@ class Table:
         return "step-bound" if bound is not None else "proofs"
 
     def lookup(self, keys, missing: str = "nan") -> dict:
-        """Vectorised lookups. keys: a list of keys, or an N x L (1D) / N x R x C (2D)
-        numpy array of one shape; zero keys give empty arrays, one key alone (a string) is
-        refused. Returns arrays: count (float64), probability, ctm."""
+        """Look up many keys at once.
+
+        Parameters
+        ----------
+        keys : list or numpy.ndarray
+            A list of keys (key text such as ``"0110"`` or ``"01/10"``, bytes, integer sequences),
+            or an integer array of one shape: N x L (1D) or N x rows x cols (2D). Zero keys give
+            empty arrays; one key alone (a string) is refused, give ``[key]``.
+        missing : {"nan", "fallback", "raise"}
+            What a key the table never produced scores: NaN (the default here, so that a batch
+            carries on), ``fallback()`` bits, or MissingKeyError. ``ctm()`` defaults to "raise",
+            since one missing key asked for by name is worth an error.
+
+        Returns
+        -------
+        dict of numpy.ndarray, one entry per key, in the order given
+            Every table: ``count`` (float64; exact up to 2^53), ``probability`` (count / total)
+            and ``ctm`` (-log2 probability, bits).
+            Exhaustive tables add ``ctm_low`` and ``ctm_high``: certified bounds on the CTM for
+            an unbounded runtime (points where the table is exact or settled the key's size).
+            Sampled tables add ``standard_error`` of the probability (NaN for unseen keys) and
+            warn (RareKeyWarning) about keys seen fewer than ``min_seen`` times.
+            Tables cut by size add ``dropped`` (bool): a key of a dropped size has count NaN and
+            bounds [dropped_bound, inf].
+        """
         if missing not in MISSING_POLICIES:
             self._missing(None, missing)  # the one error for an unknown policy
         self.require_halting()
