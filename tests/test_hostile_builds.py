@@ -10,6 +10,7 @@ import signal
 import socket
 import subprocess
 import sys
+import textwrap
 import threading
 import time
 import tracemalloc
@@ -380,3 +381,21 @@ def test_extend_at_the_largest_seed_names_the_table_not_the_option(tmp_path):
     assert "2^63 - 1" in line and "--seed 0" in line and "got" not in line
     r = ctm("build", "--extend", table, "--sample", SAMPLE_UNIT, "--seed", "0", "-q")
     assert r.returncode == 0 and load(table).header["sample"]["size"] == 2 * SAMPLE_UNIT, r.stderr
+
+
+def test_an_interrupt_never_hangs_on_a_thread_that_cannot_end():
+    # a pool's manager thread blocked on a queue a killed worker held (seen under heavy load)
+    # would make the interpreter's exit join it forever: the command must still end, 130
+    code = textwrap.dedent("""
+        import threading, sys
+        from ctmtab.tools import cli
+        threading.Thread(target=threading.Event().wait).start()  # never ends, not a daemon
+        def interrupted(a):
+            raise KeyboardInterrupt
+        cli.COMMANDS["info"] = interrupted
+        sys.exit(cli.main(["info", "1d-n3-m2-t21"]))
+    """)
+    t0 = time.monotonic()
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
+    assert r.returncode == 130 and r.stderr == "ctmtab info: interrupted\n", r.stderr
+    assert time.monotonic() - t0 < 30

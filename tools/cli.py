@@ -10,6 +10,7 @@ import os
 import shlex
 import signal
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -840,7 +841,25 @@ def main(argv=None) -> int:
         return 2
     except KeyboardInterrupt:
         print(f"ctmtab {args.command}: interrupted", file=sys.stderr)
+        _exit_now_if_threads_hang(130)
         return 130
+
+
+def _exit_now_if_threads_hang(code: int) -> None:
+    """After an interrupt, a process pool's manager thread can stay blocked on a queue that a
+    killed worker held (seen under heavy load), and the interpreter's exit joins it forever.
+    Every write is atomic and done by now, so end the process at once; only when running as the
+    command (tests that call main() in-process keep their threads)."""
+    if sys.stdout is not sys.__stdout__:
+        return
+    others = [t for t in threading.enumerate() if t is not threading.main_thread() and t.is_alive()
+              and not t.daemon]
+    for t in others:
+        t.join(timeout=2)
+    if any(t.is_alive() for t in others):
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(code)
 
 
 if __name__ == "__main__":
