@@ -365,7 +365,8 @@ class Table:
     def lookup(self, keys, missing: str = "nan") -> dict:
         """Vectorised lookups. keys: a list of keys, or an N x L (1D) / N x R x C (2D)
         numpy array of one shape; zero keys give empty arrays, one key alone (a string) is
-        refused. Returns arrays: count (float64), probability, ctm."""
+        refused. Returns arrays: count (float64), probability, ctm; exhaustive tables ctm_low and
+        ctm_high, sampled tables standard_error (of the probability) and seen (samples behind each key)."""
         if missing not in MISSING_POLICIES:
             self._missing(None, missing)  # the one error for an unknown policy
         self.require_halting()
@@ -436,6 +437,7 @@ class Table:
         if self.mode == "sampled":
             with np.errstate(divide="ignore", invalid="ignore"):
                 out["standard_error"] = np.where(counts > 0, sampled.errors(self, counts, moments), np.nan)
+                out["seen"] = np.where(counts > 0, sampled.seen_of(counts, moments), 0.0)
                 rare = int(np.count_nonzero((counts > 0) & (sampled.seen_of(counts, moments) < self.min_seen)))
             if rare:
                 warnings.warn(RareKeyWarning(
