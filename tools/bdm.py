@@ -22,7 +22,6 @@ MODES = ("drop", "wrap", "shrink")
 # What a block the table never produced does, besides taking the fallback value.
 ON_MISSING = ("warn", "error", "ignore")
 CODE_BITS = 62  # a block's base-m code, and a code beside an input's index, fit an int64
-KEEP_INDICES = 1 << 22  # cell indices a part keeps for reuse (32 MiB), beyond made per call
 
 
 @dataclass(frozen=True)
@@ -87,8 +86,13 @@ def check_alphabet(alphabet: str, m: int) -> str:
     return alphabet
 
 
-def _runs(keys: np.ndarray):
-    """Sorted distinct values of keys and how often each occurs."""
+def _runs(keys: np.ndarray, size: int | None = None):
+    """Sorted distinct values of keys and how often each occurs (size: keys lie in 0..size-1,
+    counted in one pass where that array is small)."""
+    if size is not None and size <= 1 << 20 and len(keys) >= size >> 4:
+        counts = np.bincount(keys, minlength=size)
+        distinct = np.flatnonzero(counts)
+        return distinct, counts[distinct]
     keys = np.sort(keys, kind="stable")
     if len(keys) == 0:
         return keys, np.zeros(0, dtype=np.int64)
@@ -107,25 +111,18 @@ class _Part:
     """Blocks of one shape at the origins rows x cols of a region (r0, c0, R, C) of the input;
     wrap: cells past the region's edge are read from its start."""
 
-    def __init__(self, block, rows, cols, region):
-        self.block, self.rows, self.cols, self.region = block, rows, cols, region
+    def __init__(self, block, rows, cols, region, wrap=False):
+        self.block, self.rows, self.cols, self.region, self.wrap = block, rows, cols, region, wrap
 
     def __len__(self):
         return len(self.rows) * len(self.cols)
 
     def cells(self, width: int) -> np.ndarray:
         """Per cell (i, j) of a block, in row-major order: the flat index in the input of that cell
-        of every block, cells x blocks (kept for small parts: many inputs of one shape reuse it)."""
-        kept = getattr(self, "_kept", None)
-        if kept is not None:
-            return kept
+        of every block, cells x blocks."""
         r0, c0, R, C = self.region
-        out = [((self.rows + i) % R + r0)[:, None] * width + ((self.cols + j) % C + c0)[None, :]
-               for i in range(self.block[0]) for j in range(self.block[1])]
-        out = np.stack([a.reshape(-1) for a in out])
-        if out.size <= KEEP_INDICES:
-            self._kept = out
-        return out
+        return np.stack([(((self.rows + i) % R + r0)[:, None] * width + ((self.cols + j) % C + c0)[None, :])
+                         .reshape(-1) for i in range(self.block[0]) for j in range(self.block[1])])
 
 
 def _layout(dims, region, block, stride, mode) -> list:
@@ -135,7 +132,7 @@ def _layout(dims, region, block, stride, mode) -> list:
     r0, c0, R, C = region
     (br, bc), (sr, sc) = block, stride
     if mode == "wrap":
-        return [_Part(block, np.arange(0, R, sr), np.arange(0, C, sc), region)]
+        return [_Part(block, np.arange(0, R, sr), np.arange(0, C, sc), region, wrap=True)]
     rows, cols = np.arange(0, R - br + 1, sr), np.arange(0, C - bc + 1, sc)
     parts = [_Part(block, rows, cols, region)] if len(rows) and len(cols) else []
     if mode == "drop":
@@ -166,10 +163,12 @@ class _Geometry:
         self.shapes = {}  # block shape (rows, cols) -> its parts
         for p in parts:
             self.shapes.setdefault(p.block, []).append(p)
-        covered = np.zeros(R * C, dtype=bool)
+        covered = np.zeros((R, C), dtype=bool)
         for p in parts:
-            for idx in p.cells(C):
-                covered[idx] = True
+            r0, c0, pr, pc = p.region
+            for i in range(p.block[0]):
+                for j in range(p.block[1]):
+                    covered[r0 + (i + p.rows[:, None]) % pr, c0 + (j + p.cols[None, :]) % pc] = True
         self.dropped = int(R * C - np.count_nonzero(covered))
         self.width = C
 
@@ -259,21 +258,25 @@ class BDM:
     def _key_shape(self, block2) -> tuple:
         return block2 if self.dims == 2 else (block2[1],)
 
-    def _codes(self, flat: np.ndarray, parts, width: int) -> np.ndarray:
+    def _codes(self, X: np.ndarray, parts) -> np.ndarray:
         """Base-m codes (most significant cell first, row-major) of every block of the parts in
-        every input: flat is inputs x cells."""
+        every input: X is inputs x rows x cols. Strided views, one cell of every block at a time,
+        so memory stays at one code per block."""
         out = []
         for p in parts:
-            cells = p.cells(width)
-            if isinstance(cells, np.ndarray) and len(flat) * cells.size <= KEEP_INDICES:
-                powers = self.m ** np.arange(len(cells) - 1, -1, -1, dtype=np.int64)
-                out.append(powers @ flat[:, cells])  # one gather, one product: inputs x blocks
-                continue
-            code = np.zeros((len(flat), len(p)), dtype=np.int64)
-            for idx in cells:  # Horner's rule, one cell at a time: memory of one code per block
-                code *= self.m
-                code += flat[:, idx]
-            out.append(code)
+            r0, c0, R, C = p.region
+            (br, bc), (nr, nc) = p.block, (len(p.rows), len(p.cols))
+            sub = X[:, r0:r0 + R, c0:c0 + C]
+            if p.wrap:  # the region continued from its start, as far as the last block reaches
+                sub = np.pad(sub, ((0, 0), (0, br), (0, bc)), mode="wrap")
+            sr = p.rows[1] - p.rows[0] if nr > 1 else 1
+            sc = p.cols[1] - p.cols[0] if nc > 1 else 1
+            code = np.zeros((len(X), nr, nc), dtype=np.int64)
+            for i in range(br):
+                for j in range(bc):
+                    code *= self.m
+                    code += sub[:, i:i + sr * (nr - 1) + 1:sr, j:j + sc * (nc - 1) + 1:sc]
+            out.append(code.reshape(len(X), -1))
         return out[0] if len(out) == 1 else np.concatenate(out, axis=1)
 
     def _decode(self, codes: np.ndarray, key_shape) -> np.ndarray:
@@ -312,13 +315,12 @@ class BDM:
         """Scores of N inputs of one shape, X: N x rows x cols symbols; arrays of N."""
         n = len(X)
         geo = self._geometry(X.shape[1:])
-        flat = X.reshape(n, -1)
         z = lambda: np.zeros(n)  # noqa: E731
         acc = {k: z() for k in ("value", "low", "high", "var", "blocks", "distinct", "fallbacks", "rare")}
         example = None
         for block2, parts in geo.shapes.items():
             key_shape = self._key_shape(block2)
-            codes = self._codes(flat, parts, geo.width)
+            codes = self._codes(X, parts)
             per = codes.shape[1]
             size = self.m ** math.prod(block2)
             if n > 1 and math.log2(n) + math.log2(size) < 63:  # (input, code) as one int64: one sort
@@ -406,8 +408,8 @@ class BDM:
         total, fell, blocks, example = 0.0, 0, 0, None
         for block2, parts in geo.shapes.items():  # one input: no per-input grouping to do
             key_shape = self._key_shape(block2)
-            codes = self._codes(X.reshape(1, -1), parts, geo.width)[0]
-            distinct, counts = _runs(codes)
+            codes = self._codes(X[None], parts)[0]
+            distinct, counts = _runs(codes, self.m ** math.prod(block2))
             vals = self._values(key_shape, distinct, False)
             total += float(np.sum(vals["ctm"]) + np.sum(np.log2(counts)))
             blocks += len(codes)
@@ -460,7 +462,7 @@ class BDM:
         parts = geo.shapes.get(self.block2)
         if not parts:
             return np.zeros(0, dtype=np.int64)
-        return self._codes(X.reshape(1, -1), parts, geo.width)[0]
+        return self._codes(X[None], parts)[0]
 
     def fallbacks(self, x) -> int:
         """How many of the blocks BDM takes from x (the smaller blocks of 'shrink' too) the table
@@ -493,7 +495,7 @@ class BDM:
         first = 0
         for g, block2 in enumerate(shapes):
             parts = geo.shapes[block2]
-            code = self._codes(flat[None, :], parts, geo.width)[0]
+            code = self._codes(X[None], parts)[0]
             occ_key.append(code * len(shapes) + g)  # a block: its code beside its shape's number
             n_cells = math.prod(block2)
             ids = np.arange(first, first + len(code))
