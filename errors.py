@@ -105,3 +105,8 @@ DEFAULT_MIN_SEEN = 10
 
 class RareKeyWarning(UserWarning):
     """A sampled table's key seen fewer than Table.min_seen times: its estimate is rough."""
+
+
+class FallbackWarning(UserWarning):
+    """BDM scored blocks the table never produced with its fallback value, not a table value
+    (BDM on_missing='error' raises MissingKeyError instead, 'ignore' stays quiet)."""

@@ -412,7 +412,7 @@ class Table:
             Exhaustive tables add ``ctm_low`` and ``ctm_high``: certified bounds on the CTM for
             an unbounded runtime (points where the table is exact or settled the key's size).
             Sampled tables add ``standard_error`` of the probability (NaN for unseen keys) and
-            warn (RareKeyWarning) about keys seen fewer than ``min_seen`` times.
+            ``seen`` (the samples behind each key), and warn (RareKeyWarning) about keys seen fewer than ``min_seen`` times.
             Tables cut by size add ``dropped`` (bool): a key of a dropped size has count NaN and
             bounds [dropped_bound, inf].
         """
@@ -486,6 +486,7 @@ class Table:
         if self.mode == "sampled":
             with np.errstate(divide="ignore", invalid="ignore"):
                 out["standard_error"] = np.where(counts > 0, sampled.errors(self, counts, moments), np.nan)
+                out["seen"] = np.where(counts > 0, sampled.seen_of(counts, moments), 0.0)
                 rare = int(np.count_nonzero((counts > 0) & (sampled.seen_of(counts, moments) < self.min_seen)))
             if rare:
                 warnings.warn(RareKeyWarning(

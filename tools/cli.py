@@ -134,6 +134,22 @@ def _parser() -> argparse.ArgumentParser:
                    help=f"sampled tables: warn about keys seen in fewer than K samples; default {DEFAULT_MIN_SEEN}")
     p.add_argument("--json", action="store_true")
 
+    p = sub.add_parser("bdm", help="BDM of sequences or a 2D array, with its interval or standard error")
+    p.add_argument("table")
+    p.add_argument("input", nargs="?", default="-", metavar="FILE",
+                   help="1D: one sequence per line; 2D: a CSV matrix (a line without commas: one cell per "
+                        "character) or a .npy array; - or nothing: standard input")
+    p.add_argument("--block", required=True, metavar="B", help="block size: a length (1D), RxC or one side (2D)")
+    p.add_argument("--boundary", choices=("drop", "wrap", "shrink"), default="drop",
+                   help="cells past the last full block: left out (default), wrapped around, or scored with "
+                        "smaller blocks")
+    p.add_argument("--stride", metavar="S", help="step between blocks, as --block; default the block size")
+    p.add_argument("--alphabet", metavar="SYMBOLS",
+                   help="characters standing for the symbols 0..m-1 in order, e.g. ACGT; default digits")
+    p.add_argument("--min-seen", type=int, default=DEFAULT_MIN_SEEN, metavar="K",
+                   help=f"sampled tables: a block seen in fewer than K samples is rare; default {DEFAULT_MIN_SEEN}")
+    p.add_argument("--json", action="store_true", help="a list of objects, one per input")
+
     p = sub.add_parser("verify", help="check checksums, invariants and symmetry closure")
     p.add_argument("tables", nargs="+")
     p.add_argument("--json", action="store_true")
@@ -610,6 +626,152 @@ def cmd_lookup(a) -> int:
     return 0
 
 
+def _block_arg(text, dims: int, flag: str):
+    """--block, --stride: a length in 1D; RxC, or one side for a square, in 2D."""
+    parts = text.lower().split("x") if text is not None else None
+    if parts is None:
+        return None
+    if not all(p.isascii() and p.isdigit() and int(p) > 0 for p in parts) or len(parts) > dims or (
+            dims == 1 and len(parts) != 1):
+        want = "a whole number >= 1" if dims == 1 else "RxC such as 4x4, or one side such as 4"
+        raise CtmtabError(f"{flag} {text!r} is not a size for this {dims}D table; give {want}")
+    sizes = [int(p) for p in parts]
+    return sizes[0] if dims == 1 else (sizes[0], sizes[-1])
+
+
+def _read_text(path: str) -> str:
+    try:
+        raw = sys.stdin.buffer.read() if path == "-" else Path(path).read_bytes()
+        return raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise CtmtabError(f"{'standard input' if path == '-' else path} is not UTF-8 text (byte {exc.start + 1}); "
+                          "give text, one input per line") from None
+
+
+def _text_cells(line: str, n: int, m: int, alphabet):
+    """One line of symbols (digits, dotted cells over 10 symbols, or alphabet characters)."""
+    from ..tables import keys as keytext
+    from .bdm import symbols_from_text
+
+    if alphabet is not None:
+        return symbols_from_text(line, alphabet, f"line {n}")
+    col = next((i for i, c in enumerate(line) if c.isalpha()), None)
+    if col is not None:
+        raise CtmtabError(f"line {n} holds the letter {line[col]!r} at column {col + 1}; give --alphabet (e.g. "
+                          f"--alphabet ACGT) to read letters as the symbols 0..{m - 1}")
+    cells = keytext.parse(line, m, f"line {n}")
+    if cells.ndim != 1:
+        raise CtmtabError(f"line {n} holds '/': give one sequence per line")
+    return keytext.as_symbols(cells, m, f"line {n}", "", "fix the line")
+
+
+def _bdm_inputs(a, t) -> list:
+    """The inputs of `ctmtab bdm`: [(label, symbols)], 1D rows or 2D arrays."""
+    import numpy as np
+
+    from ..tables import keys as keytext
+    from .bdm import check_alphabet, symbols_from_text
+
+    m, dims = t.space.symbols, t.space.dims
+    alphabet = None if a.alphabet is None else check_alphabet(a.alphabet, m)
+    if a.input != "-" and a.input.endswith(".npy"):
+        if alphabet is not None:
+            raise CtmtabError("--alphabet reads text; a .npy array holds symbols 0..m-1 already, so leave it out")
+        try:
+            arr = np.load(a.input, allow_pickle=False)
+        except (ValueError, EOFError) as exc:
+            raise CtmtabError(f"{a.input} is not a numpy array file ({_line(exc)})") from None
+        if not isinstance(arr, np.ndarray) or arr.ndim not in (dims, dims + 1) or arr.size == 0:
+            raise CtmtabError(f"{a.input} holds an array of shape {getattr(arr, 'shape', '?')}; give a non-empty "
+                              f"{dims}D array (or a stack of them, {dims + 1}D)")
+        arr = keytext.as_symbols(arr, m, a.input, f" of this {t.space.label} table")
+        return [(str(i + 1), x) for i, x in enumerate(arr if arr.ndim == dims + 1 else arr[None])]
+    lines = [line.rstrip("\r") for line in _read_text(a.input).split("\n")]
+    while lines and not lines[-1].strip():
+        lines.pop()  # the final line break, and blank lines after the data
+    if not lines:
+        raise CtmtabError(f"{'standard input' if a.input == '-' else a.input} holds no data")
+    for n, line in enumerate(lines, 1):
+        if not line.strip():
+            raise CtmtabError(f"line {n} is empty; give one input per line")
+    if dims == 1:
+        return [(str(n), _text_cells(line.strip(), n, m, alphabet)) for n, line in enumerate(lines, 1)]
+    rows = []
+    for n, line in enumerate(lines, 1):
+        if "," not in line:
+            rows.append(_text_cells(line.strip(), n, m, alphabet))
+            continue
+        cells = [c.strip() for c in line.split(",")]
+        for col, c in enumerate(cells, 1):
+            if alphabet is None and not (c.isascii() and c.isdigit()):
+                hint = "; give --alphabet to read letters" if c.isalpha() else ""
+                raise CtmtabError(f"line {n}, column {col}: {_line(c)!r} is not a symbol 0..{m - 1}{hint}")
+            if alphabet is not None and len(c) != 1:
+                raise CtmtabError(f"line {n}, column {col}: {_line(c)!r} is not one character of the alphabet")
+        row = (symbols_from_text("".join(cells), alphabet, f"line {n}") if alphabet is not None
+               else np.array([int(c) for c in cells]))
+        rows.append(keytext.as_symbols(row, m, f"line {n}", "", "fix the line"))
+    if len({len(r) for r in rows}) > 1:
+        n = next(i for i, r in enumerate(rows, 1) if len(r) != len(rows[0]))
+        raise CtmtabError(f"line {n} has {len(rows[n - 1])} cells, line 1 has {len(rows[0])}; give a "
+                          "rectangular matrix")
+    return [("1", np.stack(rows))]
+
+
+def cmd_bdm(a) -> int:
+    import warnings
+
+    import numpy as np
+
+    from ..tables import load
+    from .bdm import BDM
+
+    if a.min_seen < 0:
+        raise CtmtabError(f"--min-seen {a.min_seen} is negative; give 0 (no warnings) or more")
+    t = load(a.table)
+    t.min_seen = a.min_seen
+    dims = t.space.dims
+    bdm = BDM(t, _block_arg(a.block, dims, "--block"), mode=a.boundary,
+              stride=_block_arg(a.stride, dims, "--stride"), on_missing="ignore")
+    inputs = _bdm_inputs(a, t)
+    by_shape = {}
+    for i, (_, x) in enumerate(inputs):
+        by_shape.setdefault(x.shape, []).append(i)
+    cols = {}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RareKeyWarning)  # counted per input, and told once below
+        for idx in by_shape.values():
+            part = bdm.estimate_many(np.stack([inputs[i][1] for i in idx]))
+            for k, v in part.items():
+                cols.setdefault(k, np.zeros(len(inputs), dtype=v.dtype))[idx] = v
+    names = ["bdm"] + (["standard_error"] if t.mode == "sampled" else ["bdm_low", "bdm_high"]) + [
+        "fallbacks", "rare", "dropped_cells"]
+    label = "line" if dims == 1 and not a.input.endswith(".npy") else "input"
+    if a.json:
+        rows = [{label: int(lab)} for lab, _ in inputs]
+        for k in names:
+            for r, v in zip(rows, cols[k].tolist()):
+                r[k] = v
+        print(_json(rows, indent=1))
+    else:
+        table = [[label] + names] + [[lab] + [f"{cols[k][i]:.4f}" if cols[k].dtype.kind == "f" else f"{cols[k][i]}"
+                                             for k in names] for i, (lab, _) in enumerate(inputs)]
+        widths = [max(len(r[j]) for r in table) for j in range(len(table[0]))]
+        print("\n".join("  ".join(c.rjust(w) for c, w in zip(r, widths)) for r in table))
+    fell, blocks = int(cols["fallbacks"].sum()), int(cols["blocks"].sum())
+    if fell:
+        never = "seen in this sample" if t.mode == "sampled" else "produced by this table"
+        hit = int(np.count_nonzero(cols["fallbacks"]))
+        print(f"ctmtab bdm: warning: {fell:,} of the {blocks:,} blocks (in {hit:,} of {len(inputs):,} inputs) were "
+              f"never {never} and were scored with the fallback value {t.fallback():.4f} bits; use smaller "
+              "blocks or a table that holds them", file=sys.stderr)
+    rare = int(cols["rare"].sum())
+    if rare and a.min_seen > 0:
+        print(f"ctmtab bdm: warning: {rare:,} blocks were seen in fewer than --min-seen {a.min_seen} samples; "
+              "their CTM values are rough", file=sys.stderr)
+    return 0
+
+
 def cmd_verify(a) -> int:
     """Every file, each reported: a table that fails is 1, a file that cannot be read 2; the
     exit code is the worst."""
@@ -786,7 +948,7 @@ def cmd_demo(a) -> int:
     return 0
 
 
-COMMANDS = {"validate": cmd_validate, "plot": cmd_plot, "demo": cmd_demo, "build": cmd_build, "info": cmd_info, "lookup": cmd_lookup, "verify": cmd_verify,
+COMMANDS = {"bdm": cmd_bdm, "validate": cmd_validate, "plot": cmd_plot, "demo": cmd_demo, "build": cmd_build, "info": cmd_info, "lookup": cmd_lookup, "verify": cmd_verify,
             "merge": cmd_merge, "trim": cmd_trim, "export": cmd_export, "run": cmd_run}
 
 
@@ -821,7 +983,12 @@ def _quiet_stdout() -> None:
 def main(argv=None) -> int:
     if hasattr(signal, "SIGPIPE"):
         signal.signal(signal.SIGPIPE, signal.SIG_DFL)  # `ctmtab export ... | head` ends quietly
-    args = _parser().parse_args(argv)
+    parser = _parser()
+    args, extra = parser.parse_known_args(argv)
+    if args.command == "bdm" and args.input == "-" and len(extra) == 1 and (extra[0] == "-" or not extra[0].startswith("-")):
+        args.input = extra[0]  # FILE after an option: argparse leaves an optional positional unfilled there
+    elif extra:
+        parser.error(f"unrecognized arguments: {' '.join(extra)}")
     try:
         if args.command in ("build", "merge"):  # the commands that store their command line
             _check_text(sys.argv[1:] if argv is None else argv)

@@ -145,3 +145,25 @@ def test_ngram_cps_on_52_holdouts(benchmark, holdouts_52):
     proved = benchmark.pedantic(prove_all, rounds=3, iterations=1)
     benchmark.extra_info.update(nodes=len(holdouts_52), proved=proved)
     assert proved > 0.9 * len(holdouts_52)
+
+
+@pytest.fixture(scope="module")
+def bdm_inputs():
+    """10,000 sequences of 30 bits and a 200 x 200 binary array, drawn at random: timing only."""
+    from ctmtab.tools.bdm import BDM
+    rng = np.random.default_rng(27)
+    return (BDM(load("1d-n5-m2-t500"), 12, on_missing="ignore"), rng.integers(0, 2, (10_000, 30)),
+            BDM(load("2d-n4-m2-t2000"), (4, 4), on_missing="ignore"), rng.integers(0, 2, (200, 200)))
+
+
+def test_bdm_many_sequences(benchmark, bdm_inputs):
+    bdm, seqs, _, _ = bdm_inputs
+    bdm.estimate_many(seqs[:10])  # the dense view, once
+    cols = benchmark(bdm.estimate_many, seqs)
+    assert len(cols["bdm"]) == 10_000
+
+
+def test_bdm_perturbation_200x200(benchmark, bdm_inputs):
+    _, _, bdm, x = bdm_inputs
+    out = benchmark(bdm.perturbation, x)
+    assert out.shape == x.shape
