@@ -73,12 +73,12 @@ def _share(weight: int, images: int, used: int) -> int:
     return share
 
 
-def expand_raw(space: Space, raw: dict, max_size: int | None = None, dropped: dict | None = None) -> dict:
+def expand_raw(space: Space, raw: dict, keep_size: int | None = None, dropped: dict | None = None) -> dict:
     """Exhaustive raw outputs (flag byte + symbols -> weight on blank 0) -> shape -> {key: count}
     over every run: mirror (1D) or dihedral (2D) images of the output's class, times its symbol
     maps. Vectorised: one sort per output shape; sorted by shape, then key. One shape's images
     exist at a time (they come from raw outputs of that shape or, in 2D, its transpose), so the
-    memory peak is the largest shape's, not the whole table's. With max_size, a shape whose
+    memory peak is the largest shape's, not the whole table's. With keep_size, a shape whose
     longer side passes it keeps only its record in `dropped`: shape -> (weight, keys, largest
     count), and never becomes a dict of keys."""
     m = space.symbols
@@ -129,7 +129,7 @@ def expand_raw(space: Space, raw: dict, max_size: int | None = None, dropped: di
         starts = np.flatnonzero(np.r_[True, ids[1:] != ids[:-1]])
         sums = np.add.reduceat(weights[order], starts)
         del order, ids, weights
-        if max_size is not None and size_of(shape) > max_size:
+        if keep_size is not None and size_of(shape) > keep_size:
             dropped[shape] = (int(sums.sum()), len(sums), int(sums.max()))
             continue
         out[shape] = dict(zip(map(bytes, keys), map(int, sums)))
@@ -232,16 +232,16 @@ def tally_from_sample(space: Space, cap: int, part: Partial, samples: int, seed:
     return tally
 
 
-def tally_from_partial(space: Space, cap: int, part: Partial, max_size: int | None = None, **extra) -> Tally:
-    """Expand mirror images and symbol relabellings, then check every invariant. max_size:
+def tally_from_partial(space: Space, cap: int, part: Partial, keep_size: int | None = None, **extra) -> Tally:
+    """Expand mirror images and symbol relabellings, then check every invariant. keep_size:
     keep keys up to that size only, with an exact record of the rest (Tally.dropped)."""
     dropped: dict = {}
-    groups = expand_raw(space, part.raw, max_size, dropped)
+    groups = expand_raw(space, part.raw, keep_size, dropped)
     if part.cut:
-        if max_size is None:
+        if keep_size is None:
             raise InvariantError("units cut by size reached an uncut build (a bug)")
         cut_weights(space, part.cut, dropped)
-    extra.update(max_size=max_size, dropped=dropped)
+    extra.update(keep_size=keep_size, dropped=dropped)
     if extra.get("settle") is not None:
         extra["settle"] = dict(extra["settle"], halting=part.late_halting, proven=part.late_proven,
                                nodes=add_lists([0, 0, 0], part.late_nodes), steps=part.late_steps)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import time
+import warnings
 from dataclasses import dataclass
 from functools import partial
 
@@ -173,25 +174,29 @@ def build(
     on_progress=None,
     holdouts: bool = False,
     relabel: bool = True,
-    max_size: int | None = None,
+    keep_size: int | None = None,
     settle_size: int | None = None,
+    max_size: int | None = None,
 ) -> Tally:
     """Enumerate every machine of the space under cap; return the exact tally.
 
-    split_depth cuts the tree into work units (default: from the space alone).
+    split_depth splits the tree into work units (default: from the space alone).
     workers > 1 runs units in a local process pool; scheduler runs them on a Dask
     cluster. shard=(i, N) builds units i mod N only. spool names a folder where
     finished units are kept, so a killed build resumes. The tally is the same for
     every split, executor, shard merge and resume. on_progress(done, total,
     weight_done, weight_total, steps) is called as units finish. holdouts keeps
     every undecided node in tally.holdouts (enumerator/holdouts.py renders them). relabel=False
-    turns off the first-use symbol order (same counts, for tests and benchmarks). max_size keeps
+    turns off the first-use symbol order (same counts, for tests and benchmarks). keep_size keeps
     the keys up to that size only, with an exact record of the rest (tables/cut.py), and never
     holds the longer ones as keys, which bounds the memory of a big build's expansion. settle_size
     runs every node still undecided at the cap whose size (2D: both sides) is at most that on past
     the cap until it halts, repeats or outgrows it (see check_settle): the counts stay the cap's,
     and what it finds goes to the certificate, so every key up to that size gets its exact
-    unbounded-time count."""
+    unbounded-time count. max_size: the old name of keep_size."""
+    if max_size is not None:
+        warnings.warn("build(max_size=) is now build(keep_size=)", DeprecationWarning, stacklevel=2)
+        keep_size = max_size if keep_size is None else keep_size
     _prepare(space, cap)
     if budget_hours is not None and not (isinstance(budget_hours, (int, float)) and 0 < budget_hours < math.inf):
         raise SpaceError(f"the budget must be a positive number of CPU-hours, got {budget_hours!r}; "
@@ -202,11 +207,11 @@ def build(
             raise SpaceError(f"shard {i}/{n} does not exist; use I/N with 0 <= I < N")
     if workers < 1:
         raise SpaceError(f"--workers must be 1 or more, got {workers}")
-    if max_size is not None and (isinstance(max_size, bool) or not isinstance(max_size, int) or max_size < 1):
-        raise SpaceError(f"max_size must be a whole number >= 1, got {max_size!r}")
-    if max_size is not None:
-        max_size = min(max_size, cap + 1)  # no output is longer: a larger size keeps everything
-    settle_size = check_settle(space, cap, settle_size, max_size)
+    if keep_size is not None and (isinstance(keep_size, bool) or not isinstance(keep_size, int) or keep_size < 1):
+        raise SpaceError(f"keep_size must be a whole number >= 1, got {keep_size!r}")
+    if keep_size is not None:
+        keep_size = min(keep_size, cap + 1)  # no output is longer: a larger size keeps everything
+    settle_size = check_settle(space, cap, settle_size, keep_size)
     t0 = time.perf_counter()
     # The default-depth plan is cheap and serves the estimate too; another depth (0 runs the
     # whole tree as its top) is planned only after the estimate has let the build through.
@@ -228,7 +233,7 @@ def build(
         p = plan(space, cap, split_depth, deciders, relabel)
     _check_shard(shard, p)
     chosen = p.select(shard)
-    store = _exhaustive_spool(spool, p, chosen, max_size, shard, settle_size) if spool else None
+    store = _exhaustive_spool(spool, p, chosen, keep_size, shard, settle_size) if spool else None
     results = store.finished() if store else {}
     if holdouts:  # parts spooled without their holdouts are run again
         results = {k: r for k, r in results.items() if "holdouts" in r or not r["undecided_nodes"]}
@@ -256,12 +261,12 @@ def build(
     if 0 in chosen and 0 not in results:  # the plan computed the top already: never spooled
         top = p.top
         # the plan's top run kept no holdouts and every output: run it again for either
-        if (holdouts and top["undecided_nodes"]) or max_size is not None or settle_size:
+        if (holdouts and top["undecided_nodes"]) or keep_size is not None or settle_size:
             top = _core.run_unit(space.dims, space.states, space.symbols, cap, bits, (), p.depth or -1, holdouts,
-                                 -1, max_size or 0, settle_size or 0)
+                                 -1, keep_size or 0, settle_size or 0)
             top.pop("cuts")
         accept(0, top)
-    tasks = [(space.dims, space.states, space.symbols, cap, bits, k, p.unit(k).prefix, holdouts, max_size or 0,
+    tasks = [(space.dims, space.states, space.symbols, cap, bits, k, p.unit(k).prefix, holdouts, keep_size or 0,
               settle_size or 0) for k in chosen if k != 0 and k not in results]
     with kept(store):
         for index, result in executors.stream(tasks, workers, scheduler):
@@ -272,7 +277,7 @@ def build(
         space, cap, part, deciders=tuple(deciders), units=p.count,
         covered=None if shard is None else chosen, weight=weight_total,
         plan_ident=p.ident, depth=p.depth, shard=shard, relabelled=bool(p.bits & SEARCH_RELABEL),
-        max_size=max_size, settle=None if not settle_size else {"size": settle_size},
+        keep_size=keep_size, settle=None if not settle_size else {"size": settle_size},
     )
     tally.seconds = time.perf_counter() - t0
     tally.resumed = resumed
@@ -290,7 +295,7 @@ def _check_shard(shard, p: Plan) -> None:
                          f"at most {p.count:,} shards; give N from 1 to {p.count:,}")
 
 
-def _exhaustive_spool(folder, p: Plan, chosen, max_size: int | None = None, shard=None,
+def _exhaustive_spool(folder, p: Plan, chosen, keep_size: int | None = None, shard=None,
                       settle_size: int | None = None) -> Spool:
     """The spool of an exhaustive build: units of this plan and shard, sealed by their prefix.
     A build cut by size keeps only the weight of longer outputs, so its units are another build's;
@@ -301,8 +306,8 @@ def _exhaustive_spool(folder, p: Plan, chosen, max_size: int | None = None, shar
         return (p.unit(index).uid, p.unit(index).weight) if index in wanted and index != 0 else None
 
     ident = {"kind": "exhaustive", "plan": p.ident, "space": p.space.to_dict(), "cap": p.cap, "units": p.count}
-    if max_size is not None:
-        ident["keep_size"] = max_size
+    if keep_size is not None:
+        ident["keep_size"] = keep_size
     if shard is not None:
         ident["shard"] = list(shard)
     if settle_size:  # the run-on changes what a unit records
@@ -313,7 +318,7 @@ def _exhaustive_spool(folder, p: Plan, chosen, max_size: int | None = None, shar
 MAX_SETTLE_CONFIGS = 1 << 40  # a run-on's configurations, states x head cells x tapes; far past any use
 
 
-def check_settle(space: Space, cap: int, settle_size, max_size: int | None) -> int | None:
+def check_settle(space: Space, cap: int, settle_size, keep_size: int | None) -> int | None:
     """The run-on's size K, checked: a whole number, at most the cap (a run-on stays on the cap's
     grid) and the kept size (its halts are keys), with a configuration count (states x cells x
     m^cells; 2D cells = K^2) that bounds every run-on's steps. None at a proven busy-beaver bound,
@@ -325,9 +330,9 @@ def check_settle(space: Space, cap: int, settle_size, max_size: int | None) -> i
     if settle_size > cap:
         raise SpaceError(f"a settle size of {settle_size} is larger than the cap {cap}; give --settle-size {cap} "
                          "or less (a run-on stays on the cap's tape)")
-    if max_size is not None and settle_size > max_size:
-        raise SpaceError(f"a settle size of {settle_size} is larger than the kept size {max_size}; the halts it "
-                         f"finds must be keys of the table, so give --settle-size {max_size} or less")
+    if keep_size is not None and settle_size > keep_size:
+        raise SpaceError(f"a settle size of {settle_size} is larger than the kept size {keep_size}; the halts it "
+                         f"finds must be keys of the table, so give --settle-size {keep_size} or less")
     cells = settle_size if space.dims == 1 else settle_size * settle_size
     configs = space.states * cells * space.symbols ** cells
     if configs > MAX_SETTLE_CONFIGS:

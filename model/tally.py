@@ -82,7 +82,7 @@ class Tally:
     step_bound: tuple | None = None  # (S, source) when cap >= a proven busy-beaver bound
     holdouts: list = field(default_factory=list, repr=False)  # packed undecided nodes, if kept
     relabelled: bool = False     # exhaustive, m >= 3: the search wrote symbols in first-use order
-    max_size: int | None = None  # keys kept up to this size (longer side); None: every key
+    keep_size: int | None = None  # keys kept up to this size (longer side); None: every key
     dropped: dict = field(default_factory=dict)  # cut shapes -> (weight, keys, largest count)
     settle: dict | None = None   # the run-on past the cap: size, halting, proven, nodes, steps
     late_groups: dict = field(default_factory=dict, repr=False)  # shape -> {key: count halting past the cap}
@@ -169,7 +169,7 @@ class Tally:
         for shape, group in self.groups.items():
             by_size[size_of(shape)] = by_size.get(size_of(shape), 0) + sum(group.values())
         for shape, (weight, _, _) in self.dropped.items():
-            if self.max_size is None or size_of(shape) <= self.max_size or shape in self.groups:
+            if self.keep_size is None or size_of(shape) <= self.keep_size or shape in self.groups:
                 yield f"shape {shape} is recorded as cut but the cut keeps it"
             by_size[size_of(shape)] = by_size.get(size_of(shape), 0) + weight
         for size, total in by_size.items():

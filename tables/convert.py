@@ -88,7 +88,7 @@ def tally_of(t):
     from ..model.tally import Tally
 
     if t.cut is not None and t.mode == "sampled":  # a dropped key's moments are gone
-        raise TableError(f"{t.source} is cut at size {t.cut.max_size}, so its dropped keys cannot be "
+        raise TableError(f"{t.source} is cut at size {t.cut.keep_size}, so its dropped keys cannot be "
                          "added to another table's; merge or extend the uncut tables, then cut the result")
     m = t.space.symbols
     groups = {s: {row.tobytes(): int(c) for row, c in zip(t.groups[s].rows(m), t.groups[s].counts)}
@@ -115,7 +115,7 @@ def tally_of(t):
         weight=int(units.get("weight", t.space_size)), plan_ident=units.get("plan", ""),
         depth=units.get("depth", 0), shard=None if shard is None else tuple(shard), **sampled,
         relabelled="symbol-relabelling" in t.header.get("symmetries", []),
-        max_size=None if t.cut is None else t.cut.max_size,
+        keep_size=None if t.cut is None else t.cut.keep_size,
         dropped={} if t.cut is None else dict(t.cut.dropped),
         **certificate_fields(t),
     )

@@ -1,7 +1,7 @@
 """The size cut (format 1.5, header field `cut`): a table that keeps its keys up to a size.
 
 A (6,2) table holds millions of keys, most of them long strings that BDM never asks for. A
-cut table keeps the shapes whose longer side is at most `max_size` and records, per dropped
+cut table keeps the shapes whose longer side is at most `keep_size` and records, per dropped
 shape, the exact weight it held, how many distinct keys and the largest count among them. A
 build cut in the core (`build --keep-size`) never sees the long keys: its records hold no key
 count (null) and bound the largest count by the shape's weight. So:
@@ -31,7 +31,7 @@ class DroppedKeyError(TableError, KeyError):
 
 @dataclass
 class Cut:
-    max_size: int
+    keep_size: int
     dropped: dict = field(default_factory=dict)  # shape -> (weight, keys or None, bound on the largest count)
 
     @property
@@ -45,8 +45,8 @@ class Cut:
         return None if None in counts else sum(counts)
 
     def cuts(self, shape: tuple) -> bool:
-        """Whether keys of this shape were dropped (a longer side past max_size)."""
-        return max(shape) > self.max_size
+        """Whether keys of this shape were dropped (a longer side past keep_size)."""
+        return max(shape) > self.keep_size
 
     def most(self, shape: tuple) -> int:
         """An upper bound on the count of any dropped key of this shape, exact where the key count
@@ -54,13 +54,13 @@ class Cut:
         return self.dropped.get(tuple(shape), (0, 0, 0))[2]
 
     def header_field(self) -> dict:
-        return {"max_size": self.max_size,
+        return {"max_size": self.keep_size,
                 "dropped": [[list(s), str(w), k, str(top)] for s, (w, k, top) in sorted(self.dropped.items())]}
 
 
 def of_tally(tally) -> Cut | None:
     # no output is longer than cap + 1 cells: a larger size keeps everything, and says so
-    return None if tally.max_size is None else Cut(min(tally.max_size, tally.cap + 1), dict(tally.dropped))
+    return None if tally.keep_size is None else Cut(min(tally.keep_size, tally.cap + 1), dict(tally.dropped))
 
 
 def _whole(v, what: str) -> int:
@@ -76,10 +76,10 @@ def parse(header: dict, dims: int, symbols: int, cap: int, kept_shapes) -> Cut |
         return None
     if not isinstance(spec, dict) or not isinstance(spec.get("dropped"), list) or len(spec["dropped"]) > MAX_DROPPED:
         raise InconsistentTableError("the header's cut is malformed")
-    max_size = _whole(spec.get("max_size"), "max_size")
-    if not 1 <= max_size <= cap + 1:
-        raise InconsistentTableError(f"the cut keeps keys up to size {max_size}, which cap {cap} cannot mean")
-    cut = Cut(max_size)
+    keep_size = _whole(spec.get("max_size"), "max_size")  # the file's key
+    if not 1 <= keep_size <= cap + 1:
+        raise InconsistentTableError(f"the cut keeps keys up to size {keep_size}, which cap {cap} cannot mean")
+    cut = Cut(keep_size)
     for entry in spec["dropped"]:
         if not (isinstance(entry, list) and len(entry) == 4 and isinstance(entry[0], list) and len(entry[0]) == dims):
             raise InconsistentTableError("a dropped-shape record is not [shape, weight, keys, largest count]")
@@ -101,5 +101,5 @@ def parse(header: dict, dims: int, symbols: int, cap: int, kept_shapes) -> Cut |
         cut.dropped[shape] = (weight, keys, top)
     kept_too_big = [s for s in kept_shapes if cut.cuts(s)]
     if kept_too_big:
-        raise InconsistentTableError(f"the table keeps shape {kept_too_big[0]}, past its cut at size {max_size}")
+        raise InconsistentTableError(f"the table keeps shape {kept_too_big[0]}, past its cut at size {keep_size}")
     return cut

@@ -21,11 +21,11 @@ def merge(tables: list[Table], *, command: str = "", builder: str | None = None,
     first = tables[0]
     for t in tables:
         if t.cut is not None and t.mode == "sampled":
-            raise MergeError(f"{t.source} is cut at size {t.cut.max_size}, so its dropped keys cannot be added up; "
-                             "merge or extend the uncut tables, then cut the result with ctmtab trim")
+            raise MergeError(f"{t.source} is cut at size {t.cut.keep_size}, so its dropped keys cannot be added up; "
+                             "merge or extend the uncut tables, then cut the result with ctmtab cut")
         if _cut_size(t) != _cut_size(first):
             raise MergeError(f"{t.source} keeps {_kept(t)}, {first.source} {_kept(first)}; cut every shard "
-                             f"to one size first (ctmtab trim --keep-size N)")
+                             f"to one size first (ctmtab cut --keep-size N)")
     for t in tables[1:]:
         for key in SAME:
             if t.header.get(key) != first.header.get(key):
@@ -79,11 +79,11 @@ def _notes(notes: str, tables: list[Table]) -> str:
 
 
 def _cut_size(t: Table) -> int | None:
-    return None if t.cut is None else t.cut.max_size
+    return None if t.cut is None else t.cut.keep_size
 
 
 def _kept(t: Table) -> str:
-    return "every key" if t.cut is None else f"keys up to size {t.cut.max_size}"
+    return "every key" if t.cut is None else f"keys up to size {t.cut.keep_size}"
 
 
 def _summed_cuts(tallies: list) -> dict:

@@ -36,7 +36,7 @@ def summary(t) -> dict:
         "deciders": t.header.get("deciders", []),
         "certificate": certificate_summary(t),
         "cut": None if t.cut is None else {
-            "max_size": t.cut.max_size, "dropped_keys": t.cut.keys, "dropped_weight": t.cut.weight,
+            "keep_size": t.cut.keep_size, "dropped_keys": t.cut.keys, "dropped_weight": t.cut.weight,
             "dropped": [{"shape": "x".join(map(str, sh)), "weight": w, "keys": k, "largest_count": top}
                         for sh, (w, k, top) in sorted(t.cut.dropped.items())]},
         "format": t.header.get("_format", [fmt.MAJOR, fmt.MINOR]),

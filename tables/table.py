@@ -137,16 +137,16 @@ class Table:
 
     # ---- building and saving
 
-    def trimmed(self, max_size: int) -> "Table":
-        """This table keeping only the keys whose longer side is at most max_size, with an exact
+    def cut_at(self, keep_size: int) -> "Table":
+        """This table keeping only the keys whose longer side is at most keep_size, with an exact
         record of what it dropped (tables/cut.py). Pure Python; the counts are not rebuilt."""
-        if isinstance(max_size, bool) or not isinstance(max_size, int) or max_size < 1:
-            raise TableError(f"the size to keep must be a whole number >= 1, got {max_size!r}")
-        if self.cut is not None and max_size >= self.cut.max_size:
-            raise TableError(f"{self.source} is already cut at size {self.cut.max_size}; a cut can only "
-                             f"keep fewer sizes, so give a size below {self.cut.max_size}")
+        if isinstance(keep_size, bool) or not isinstance(keep_size, int) or keep_size < 1:
+            raise TableError(f"the size to keep must be a whole number >= 1, got {keep_size!r}")
+        if self.cut is not None and keep_size >= self.cut.keep_size:
+            raise TableError(f"{self.source} is already cut at size {self.cut.keep_size}; a cut can only "
+                             f"keep fewer sizes, so give a size below {self.cut.keep_size}")
         # no output is longer than cap + 1 cells: a larger size keeps everything, and says so
-        cut = sizecut.Cut(min(max_size, self.cap + 1), dict(self.cut.dropped) if self.cut else {})
+        cut = sizecut.Cut(min(keep_size, self.cap + 1), dict(self.cut.dropped) if self.cut else {})
         groups = {}
         for shape, g in self.groups.items():
             if cut.cuts(shape):
@@ -160,6 +160,11 @@ class Table:
         header["keys"] = table._key_summary()
         table.min_seen = self.min_seen
         return table
+
+    def trimmed(self, max_size: int) -> "Table":
+        """Deprecated name of cut_at."""
+        warnings.warn("Table.trimmed is now Table.cut_at", DeprecationWarning, stacklevel=2)
+        return self.cut_at(max_size)
 
     def _key_summary(self) -> dict:
         return {"distinct": self.distinct, "groups": [[list(s), len(self.groups[s])] for s in self.shapes]}
@@ -268,7 +273,7 @@ class Table:
             size = "x".join(map(str, shape))
             raise DroppedKeyError(
                 f"key {key!r} has size {size}, which this table cut (it keeps keys up to size "
-                f"{self.cut.max_size}); its CTM is at least {self.dropped_bound(shape):.4f} bits. "
+                f"{self.cut.keep_size}); its CTM is at least {self.dropped_bound(shape):.4f} bits. "
                 "Use blocks of at most that size, or a table cut at a larger size")
 
     def probability(self, key) -> float:

@@ -103,7 +103,7 @@ def test_the_shipped_5_state_2d_table_holds_every_4x4_array():
     t = load("2d-n5-m2-t100-upto4")
     # (4nm + m)^(nm) machines in the 2D busy-beaver formalism (DESIGN.md): 42^10 for (5,2)
     assert t.space_size == (4 * 5 * 2 + 2) ** 10 == 17_080_198_121_677_824
-    assert t.cut.max_size == 4 and problems(t) == []
+    assert t.cut.keep_size == 4 and problems(t) == []
     assert all(len(t.groups[(r, c)]) == 2 ** (r * c) for r in range(1, 5) for c in range(1, 5))
     x = np.random.default_rng(2026).integers(0, 2, (200, 200))
     assert BDM(t, (4, 4)).fallbacks(x) == 0

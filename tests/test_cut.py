@@ -45,7 +45,7 @@ def full32():
 
 @pytest.mark.parametrize("max_size", [1, 4, 6])
 def test_a_cut_build_keeps_the_uncut_counts_and_records_the_rest_exactly(full32, max_size):
-    cut = Table.from_tally(build(Space(1, 3, 2), 21, max_size=max_size))
+    cut = Table.from_tally(build(Space(1, 3, 2), 21, keep_size=max_size))
     kept = {k: c for k, c in full32.items() if len(k) <= max_size}
     assert dict(cut.items()) == kept
     assert cut.total == full32.total  # normalised by the true total
@@ -53,7 +53,7 @@ def test_a_cut_build_keeps_the_uncut_counts_and_records_the_rest_exactly(full32,
         assert cut.ctm(key) == full32.ctm(key) and cut.interval(key) == full32.interval(key)
     # trimming the uncut table records every dropped shape exactly; the core's cut never saw the
     # keys, so it records the same weights with no key count and a weaker bound
-    trimmed = full32.trimmed(max_size)
+    trimmed = full32.cut_at(max_size)
     assert trimmed.cut.dropped == _record(full32, max_size) and trimmed.body() == cut.body()
     assert {s: (w, None, w) for s, (w, _, _) in trimmed.cut.dropped.items()} == cut.cut.dropped
     for t in (cut, trimmed):
@@ -63,7 +63,7 @@ def test_a_cut_build_keeps_the_uncut_counts_and_records_the_rest_exactly(full32,
 
 @pytest.mark.parametrize("in_core", [False, True])
 def test_a_dropped_key_gets_a_certified_lower_bound_never_a_value(full32, in_core):
-    cut = Table.from_tally(build(Space(1, 3, 2), 21, max_size=4)) if in_core else full32.trimmed(4)
+    cut = Table.from_tally(build(Space(1, 3, 2), 21, keep_size=4)) if in_core else full32.cut_at(4)
     for key, c in full32.items():
         if len(key) > 4:
             low, high = cut.interval(key)
@@ -95,7 +95,7 @@ def test_bounds_of_a_capped_cut_table_hold_against_the_exact_table():
     # at cap 30 the (4,2) table leaves runs undecided; the certified lower bound of a dropped
     # key must still lie below its exact CTM from the cap-107 table (exact by S(4) = 107)
     exact = load("1d-n4-m2-t107")
-    capped = Table.from_tally(build(Space(1, 4, 2), 30, max_size=7))
+    capped = Table.from_tally(build(Space(1, 4, 2), 30, keep_size=7))
     assert capped.undecided > 0
     for key, c in exact.items():
         if len(key) > 7 and capped.cut.most((len(key),)):
@@ -104,7 +104,7 @@ def test_bounds_of_a_capped_cut_table_hold_against_the_exact_table():
 
 def test_a_cut_2d_table_verifies_and_keeps_its_rotations():
     full = load("2d-n3-m2-t2000")
-    cut = full.trimmed(3)
+    cut = full.cut_at(3)
     assert max(max(s) for s in cut.shapes) == 3 and problems(cut) == []
     assert cut.cut.dropped == _record(full, 3)
     for (r, c), rec in cut.cut.dropped.items():
@@ -113,13 +113,13 @@ def test_a_cut_2d_table_verifies_and_keeps_its_rotations():
 
 
 def test_cutting_again_only_keeps_fewer_sizes(full32):
-    once = full32.trimmed(6)
-    twice = once.trimmed(3)
-    assert twice.cut.dropped == full32.trimmed(3).cut.dropped and twice.total == full32.total
+    once = full32.cut_at(6)
+    twice = once.cut_at(3)
+    assert twice.cut.dropped == full32.cut_at(3).cut.dropped and twice.total == full32.total
     with pytest.raises(TableError, match="already cut at size 6"):
-        once.trimmed(6)
+        once.cut_at(6)
     with pytest.raises(TableError, match="whole number"):
-        full32.trimmed(0)
+        full32.cut_at(0)
 
 
 @pytest.mark.parametrize("space, cap, keep", [(Space(1, 4, 2), 107, 7), TWO_D_CASE])
@@ -128,9 +128,9 @@ def test_cut_shards_merge_to_the_whole_cut_build(space, cap, keep):
     # the whole cut build's table key for key, with the dropped weights exact by shape. One
     # shard is built uncut and trimmed, so its records carry key counts the merge cannot add.
     from ctmtab.tables import merge
-    whole = Table.from_tally(build(space, cap, max_size=keep))
-    shards = [Table.from_tally(build(space, cap, shard=(i, 3), max_size=keep)) for i in (0, 1)]
-    shards.append(Table.from_tally(build(space, cap, shard=(2, 3))).trimmed(keep))
+    whole = Table.from_tally(build(space, cap, keep_size=keep))
+    shards = [Table.from_tally(build(space, cap, shard=(i, 3), keep_size=keep)) for i in (0, 1)]
+    shards.append(Table.from_tally(build(space, cap, shard=(2, 3))).cut_at(keep))
     merged = loads(merge([loads(t.to_bytes()) for t in shards]).to_bytes())
     assert dict(merged.items()) == dict(whole.items()) and merged.total == whole.total
     assert merged.cut.dropped == whole.cut.dropped  # weights exact; no key count; bound = weight
@@ -141,16 +141,16 @@ def test_cut_tables_merge_only_at_one_size_and_sampled_ones_not_at_all(full32):
     from ctmtab.tables import merge
     halves = [Table.from_tally(build(Space(1, 3, 2), 21, shard=(i, 2))) for i in (0, 1)]
     with pytest.raises(MergeError, match="cut every shard to one size first"):
-        merge([halves[0].trimmed(4), halves[1].trimmed(5)])
+        merge([halves[0].cut_at(4), halves[1].cut_at(5)])
     with pytest.raises(MergeError, match="cut every shard to one size first"):
-        merge([halves[0].trimmed(4), halves[1]])
+        merge([halves[0].cut_at(4), halves[1]])
     s = load("1d-n4-m4-t2000-sampled")
     with pytest.raises(MergeError, match="merge or extend the uncut tables"):
-        merge([s.trimmed(4), s.trimmed(4)])
+        merge([s.cut_at(4), s.cut_at(4)])
 
 
 def test_bdm_uses_a_cut_table_up_to_its_size_and_refuses_longer_blocks(full32):
-    cut = full32.trimmed(4)
+    cut = full32.cut_at(4)
     s = "0110100110010110"
     assert BDM(cut, block=4)(s) == BDM(full32, block=4)(s)
     with pytest.raises(DroppedKeyError):
@@ -172,13 +172,13 @@ def test_bdm_uses_a_cut_table_up_to_its_size_and_refuses_longer_blocks(full32):
      "disagree with the size histogram"),  # the total holds; the sizes do not
 ])
 def test_resealed_cut_records_with_absurd_content_are_refused(full32, edit, fragment):
-    data = full32.trimmed(4).to_bytes()
+    data = full32.cut_at(4).to_bytes()
     with pytest.raises(InconsistentTableError, match=fragment):
         loads(with_header(data, edit))
 
 
 def test_the_command_line_trims_and_reports_dropped_keys(tmp_path):
-    r = cli("trim", "1d-n4-m2-t107", "--keep-size", "8", cwd=tmp_path)
+    r = cli("cut", "1d-n4-m2-t107", "--keep-size", "8", cwd=tmp_path)
     assert r.returncode == 0 and "dropped 1,322 keys" in r.stderr, r.stderr
     out = tmp_path / "1d-n4-m2-t107-upto8.ctmt"
     assert out.is_file()
@@ -186,7 +186,7 @@ def test_the_command_line_trims_and_reports_dropped_keys(tmp_path):
     assert r.returncode == 0 and "dropped (size cut)" in r.stdout and "(certified)" in r.stdout
     r = cli("info", out)
     assert "keys up to size 8 kept" in r.stdout
-    r = cli("trim", out, "--keep-size", "9")
+    r = cli("trim", out, "--keep-size", "9")  # the old name of cut
     assert r.returncode != 0 and "already cut at size 8" in r.stderr and "Traceback" not in r.stderr
     r = cli("build", "--states", "2", "--keep-size", "3", "--shard", "0/2", "-o", tmp_path / "a.ctmt")
     assert r.returncode == 0, r.stderr
@@ -194,7 +194,7 @@ def test_the_command_line_trims_and_reports_dropped_keys(tmp_path):
     assert r.returncode == 0, r.stderr
     r = cli("merge", tmp_path / "a.ctmt", tmp_path / "b.ctmt", "-o", tmp_path / "ab.ctmt")
     assert r.returncode == 0 and cli("verify", tmp_path / "ab.ctmt").returncode == 0, r.stderr
-    assert load(tmp_path / "ab.ctmt").cut.max_size == 3
+    assert load(tmp_path / "ab.ctmt").cut.keep_size == 3
     r = cli("build", "--states", "2", "--keep-size", "0", "-o", tmp_path / "x.ctmt")
     assert r.returncode != 0 and "--keep-size must be 1 or more" in r.stderr
     r = cli("verify", out)
@@ -202,15 +202,15 @@ def test_the_command_line_trims_and_reports_dropped_keys(tmp_path):
 
 
 def test_a_size_past_any_output_keeps_everything_and_still_loads(full32):
-    whole = full32.trimmed(10**9)
-    assert whole.cut.max_size == 22 and whole.cut.dropped == {}  # cap 21: at most 22 cells
+    whole = full32.cut_at(10**9)
+    assert whole.cut.keep_size == 22 and whole.cut.dropped == {}  # cap 21: at most 22 cells
     back = loads(whole.to_bytes())
     assert dict(back.items()) == dict(full32.items()) and problems(back) == []
 
 
 def test_a_sampled_table_cut_keeps_its_errors_and_reports_dropped_keys():
     s = load("1d-n4-m4-t2000-sampled")
-    cut = s.trimmed(5)
+    cut = s.cut_at(5)
     back = loads(cut.to_bytes())
     assert problems(back) == [] and back.total == s.total
     assert back.standard_error("0123") == s.standard_error("0123")
@@ -222,8 +222,8 @@ def test_a_sampled_table_cut_keeps_its_errors_and_reports_dropped_keys():
 @pytest.mark.parametrize("space, cap, keep", [(Space(1, 4, 2), 107, 7), TWO_D_CASE, (Space(1, 2, 3), 38, 4)])
 def test_a_build_cut_in_the_core_keeps_the_same_keys_and_dropped_weights(space, cap, keep):
     whole = Table.from_tally(build(space, cap))
-    core_cut = Table.from_tally(build(space, cap, max_size=keep, workers=2))
-    trimmed = whole.trimmed(keep)
+    core_cut = Table.from_tally(build(space, cap, keep_size=keep, workers=2))
+    trimmed = whole.cut_at(keep)
     assert dict(core_cut.items()) == dict(trimmed.items())
     assert {s: w for s, (w, _, _) in core_cut.cut.dropped.items()} == {s: w for s, (w, _, _) in trimmed.cut.dropped.items()}
     assert all(k is None and top == w for w, k, top in core_cut.cut.dropped.values())  # never collected
@@ -248,13 +248,13 @@ def test_every_cut_of_the_shipped_tables_loads_back():
     for name in ("1d-n5-m2-t500", "1d-n4-m4-t2000-sampled", "2d-n3-m2-t2000"):
         t = load(name)
         for k in (1, 3):
-            back = loads(t.trimmed(k).to_bytes())
-            assert back.total == t.total and back.cut.max_size == k
+            back = loads(t.cut_at(k).to_bytes())
+            assert back.total == t.total and back.cut.keep_size == k
 
 
 def test_a_sampled_dropped_bound_is_no_higher_than_what_the_uncut_table_allows():
     s = load("1d-n4-m4-t2000-sampled")
-    cut = s.trimmed(5)
+    cut = s.cut_at(5)
     never = "1" * 85  # a length the sample never produced: the rule of three, as uncut
     assert cut.interval(never)[0] == pytest.approx(s.interval(never)[0]) and math.isfinite(cut.interval(never)[0])
     shape = (6,)
@@ -266,21 +266,21 @@ def test_a_sampled_dropped_bound_is_no_higher_than_what_the_uncut_table_allows()
 
 
 def test_a_record_cut_in_the_core_must_bound_by_its_weight(full32):
-    data = Table.from_tally(build(Space(1, 3, 2), 21, max_size=4)).to_bytes()
+    data = Table.from_tally(build(Space(1, 3, 2), 21, keep_size=4)).to_bytes()
     with pytest.raises(InconsistentTableError, match="impossible"):
         loads(with_header(data, lambda h: h["cut"]["dropped"][0].__setitem__(3, "1")))
 
 
 def test_a_huge_keep_size_keeps_everything_without_overflow(full32):
-    t = Table.from_tally(build(Space(1, 3, 2), 21, max_size=10**20))
-    assert t.cut.max_size == 22 and dict(t.items()) == dict(full32.items())
+    t = Table.from_tally(build(Space(1, 3, 2), 21, keep_size=10**20))
+    assert t.cut.keep_size == 22 and dict(t.items()) == dict(full32.items())
 
 
 def test_the_shipped_6_state_table_covers_every_string_to_length_16_and_bdm_needs_no_fallback():
     # (4n+2)^(2n) machines, OEIS A141475's formula, at n = 6: 26^12
     t = load("1d-n6-m2-t1000-upto18")
     assert t.space_size == 26 ** 12 == 95_428_956_661_682_176
-    assert t.cut.max_size == 18 and problems(t) == []
+    assert t.cut.keep_size == 18 and problems(t) == []
     assert all(len(t.groups[(n,)]) == 2 ** n for n in range(1, 17))
     assert len(t.groups[(17,)]) < 2 ** 17  # 131,070: two strings of length 17 never appear
     # blocks of 12: the (5,2) table misses 2 of the 4,096 (REFERENCES.md: complete to 11), this one none

@@ -116,7 +116,7 @@ def test_a_settled_table_round_trips_and_verifies(tmp_path):
     assert problems(u) == []
     assert u.settle_size == 12 and u.body() == t.body()
     assert u.interval("01010101") == t.interval("01010101")
-    cut = u.trimmed(8)  # the cut keeps the run-on's record whole
+    cut = u.cut_at(8)  # the cut keeps the run-on's record whole
     assert problems(cut) == [] and cut.interval("0110") == u.interval("0110")
 
 
@@ -148,7 +148,7 @@ def test_settle_sizes_that_cannot_work_are_refused():
     with pytest.raises(SpaceError, match="larger than the cap"):
         settled(1, 2, 2, 5, 6)
     with pytest.raises(SpaceError, match="larger than the kept size"):
-        settled(1, 3, 2, 9, 6, max_size=5)
+        settled(1, 3, 2, 9, 6, keep_size=5)
     with pytest.raises(TooLargeError, match="configurations"):
         settled(2, 3, 2, 40, 7)
     with pytest.raises(SpaceError, match="whole number"):

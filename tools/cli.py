@@ -111,7 +111,7 @@ def _parser() -> argparse.ArgumentParser:
                    help="write every undecided node, one line each: machine, weight, step, size")
     p.add_argument("--keep-size", type=int, default=None, metavar="K",
                    help="keep only keys whose size (2D: longer side) is at most K, with an exact record of "
-                        "the weight dropped per size (see trim); default every key")
+                        "the weight dropped per size (see cut); default every key")
     p.add_argument("--settle-size", type=int, default=None, metavar="K",
                    help="run every node still undecided at the cap whose output fits K cells (2D: KxK) on past "
                         "the cap until it halts, repeats or outgrows K, so every key up to size K gets tight "
@@ -154,7 +154,8 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("tables", nargs="+")
     p.add_argument("--json", action="store_true")
 
-    p = sub.add_parser("trim", help="keep the keys up to a size, with an exact record of the rest")
+    # "trim" is its name of old
+    p = sub.add_parser("cut", aliases=["trim"], help="keep the keys up to a size, with an exact record of the rest")
     p.add_argument("table")
     p.add_argument("--keep-size", type=int, required=True, metavar="K",
                    help="keep keys whose size (2D: longer side) is at most K")
@@ -348,7 +349,7 @@ def cmd_build(a) -> int:
         raise CtmtabError(f"--settle-size must be 0 (off) or more, got {a.settle_size}")
     if a.keep_size is not None and base is not None:
         raise CtmtabError("--keep-size cannot cut an extended table (its dropped keys' samples could not be "
-                          "added to later); extend the uncut table, then run ctmtab trim")
+                          "added to later); extend the uncut table, then run ctmtab cut")
     seed = 1 if a.seed is None else a.seed
     stem = f"ctm-{space.dims}d-n{space.states}-m{space.symbols}-t{cap}" + (f"-s{seed}" if sampled else "")
     if base is not None and not a.output and not Path(a.extend).is_file():
@@ -391,7 +392,7 @@ def cmd_build(a) -> int:
         else:
             tally = build(space, cap, deciders=deciders, split_depth=a.split_depth, workers=workers,
                           scheduler=a.scheduler, shard=shard, spool=spool, budget_hours=a.budget_hours,
-                          on_progress=bar, holdouts=a.holdouts is not None, max_size=a.keep_size,
+                          on_progress=bar, holdouts=a.holdouts is not None, keep_size=a.keep_size,
                           settle_size=_settle_size(a, space, cap))
     finally:
         bar.close()
@@ -402,7 +403,7 @@ def cmd_build(a) -> int:
         table = Table.from_tally(tally, command=_command(), notes=a.notes, builder=a.builder,
                                  workers=workers_field)
         if sampled and a.keep_size is not None:
-            table = table.trimmed(a.keep_size)
+            table = table.cut_at(a.keep_size)
     try:
         table.save(output)
         if a.holdouts is not None:
@@ -499,7 +500,7 @@ def cmd_info(a) -> int:
         lines.append(f"  notes      {_line(s['notes'])}")
     if t.cut is not None:
         c = t.cut
-        lines.insert(4, f"  cut        keys up to size {c.max_size} kept; {_keys(c)} of {len(c.dropped)} longer shapes "
+        lines.insert(4, f"  cut        keys up to size {c.keep_size} kept; {_keys(c)} of {len(c.dropped)} longer shapes "
                         f"dropped ({_percent(c.weight / t.total) if t.total else '0%'} of the counts, kept in the "
                         "total); lookups of them give a lower bound")
     if t.mode == "exhaustive":
@@ -821,16 +822,16 @@ def _not_an_input(output, inputs, flag: str, verb: str) -> None:
                               "the table. Give another file name")
 
 
-def cmd_trim(a) -> int:
+def cmd_cut(a) -> int:
     from ..tables import load
 
     out = a.output or f"{Path(a.table).name.removesuffix('.ctmt')}-upto{a.keep_size}.ctmt"
-    _not_an_input(out, [a.table], "-o", "trimmed")
+    _not_an_input(out, [a.table], "-o", "cut")
     t = load(a.table)
-    cut = t.trimmed(a.keep_size)
+    cut = t.cut_at(a.keep_size)
     cut.save(out)
     c = cut.cut
-    print(f"{out}: kept {cut.distinct:,} keys up to size {c.max_size}, dropped {_keys(c)} of "
+    print(f"{out}: kept {cut.distinct:,} keys up to size {c.keep_size}, dropped {_keys(c)} of "
           f"{len(c.dropped)} shapes ({_percent(c.weight / cut.total) if cut.total else '0%'} of the counts)",
           file=sys.stderr)
     return 0
@@ -949,7 +950,7 @@ def cmd_demo(a) -> int:
 
 
 COMMANDS = {"bdm": cmd_bdm, "validate": cmd_validate, "plot": cmd_plot, "demo": cmd_demo, "build": cmd_build, "info": cmd_info, "lookup": cmd_lookup, "verify": cmd_verify,
-            "merge": cmd_merge, "trim": cmd_trim, "export": cmd_export, "run": cmd_run}
+            "merge": cmd_merge, "cut": cmd_cut, "trim": cmd_cut, "export": cmd_export, "run": cmd_run}
 
 
 _OS_HINTS = {
