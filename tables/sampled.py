@@ -90,6 +90,12 @@ def seen_of(s1, s2):
     return s1 * s1 / s2
 
 
+def unseen_bound(t) -> float:
+    """The CTM lower bound of a key never seen in H halting samples: p <= 3/H at 95% (the rule
+    of three)."""
+    return math.log2(t.halting / 3) if t.halting > 3 else 0.0
+
+
 def interval95(p, se):
     """CTM bounds, in bits, of the approximate 95% interval p +- 1.96 se (numpy); inf where a
     bound of the probability is not above 0."""

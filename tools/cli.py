@@ -31,6 +31,22 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"{self.prog}: {message}; see {self.prog} --help\n")
 
 
+class _KeysParser(_Parser):
+    """lookup's parser: Python 3.11 leaves keys after an option (lookup T --missing nan 0110)
+    unmatched once the keys may be none (--keys-from), so it parses them intermixed."""
+
+    _inner = False
+
+    def parse_known_args(self, args=None, namespace=None):
+        if self._inner:  # the intermixed parse calls back here
+            return super().parse_known_args(args, namespace)
+        self._inner = True
+        try:
+            return self.parse_known_intermixed_args(args, namespace)
+        finally:
+            self._inner = False
+
+
 SPACE_DEFAULTS = {"dims": 1, "states": 3, "symbols": 2}
 
 
@@ -125,10 +141,15 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="machine-readable output")
 
     p = sub.add_parser("lookup", help="count, probability and CTM of keys")
+    p.__class__ = _KeysParser  # keys may follow the options
     p.add_argument("table")
-    p.add_argument("keys", nargs="+", help='keys such as 0110 (1D) or 01/10 (2D rows)')
+    p.add_argument("keys", nargs="*", help='keys such as 0110 (1D) or 01/10 (2D rows)')
+    p.add_argument("--keys-from", metavar="FILE", action="append", default=[],
+                   help="also read keys from FILE, one a line (blank lines skipped); - reads stdin. "
+                        "Rows follow the order given: the command line's keys first")
     p.add_argument("--missing", choices=("raise", "nan", "fallback"), default="raise",
-                   help="keys never produced: fail (default), NaN, or the fallback value")
+                   help="keys never produced: fail at the first (default), or go on with a row of NaN "
+                        "or of the fallback value for each")
     p.add_argument("--min-seen", type=int, default=DEFAULT_MIN_SEEN, metavar="K",
                    help=f"sampled tables: warn about keys seen in fewer than K samples; default {DEFAULT_MIN_SEEN}")
     p.add_argument("--json", action="store_true")
@@ -555,35 +576,19 @@ def _certificate_lines(t) -> list:
 
 
 def cmd_lookup(a) -> int:
-    import warnings
-
     from ..tables import load
+    from .lookups import look_up, read_keys
 
     if a.min_seen < 0:
         raise CtmtabError(f"--min-seen {a.min_seen} is negative; give 0 (no warnings) or more")
+    if a.keys_from.count("-") > 1:
+        raise CtmtabError("--keys-from - is given twice; stdin can be read once")
+    typed = [(None, k) for k in a.keys] + [x for src in a.keys_from for x in read_keys(src)]
+    if not typed:
+        raise CtmtabError("no keys to look up; give keys such as 0110, or --keys-from FILE (- for stdin)")
     t = load(a.table)
     t.min_seen = a.min_seen
-    rows, rare = [], []
-    for typed in a.keys:
-        shape, cells = t.parse_key(typed)
-        key = t.key_text(shape, cells)  # the one spelling, as export writes it
-        if t.dropped(shape):  # cut from the table: a bound, never a value
-            rows.append({"key": key, "table": t.source, "dropped": True, "count": None, "probability": None, "ctm": None,
-                         "ctm_low": t.dropped_bound(shape), "ctm_high": math.inf})
-            continue
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", RareKeyWarning)
-            c = t.count(key)
-            ctm = t.ctm(key, missing=a.missing)
-            low, high = t.interval(key)
-        rare += [key] if any(issubclass(w.category, RareKeyWarning) for w in caught) else []
-        row = {"key": key, "table": t.source, "count": c, "probability": c / t.total, "ctm": ctm, "ctm_low": low, "ctm_high": high}
-        if t.mode == "sampled":
-            row["standard_error"] = t.standard_error(key)
-            row["rare"] = key in rare
-        elif t.settle_size is not None:  # its interval bounds the unbounded-time value with every run settled
-            row["settled"] = max(shape) <= t.settle_size
-        rows.append(row)
+    rows, rare = look_up(t, typed, a.missing)
     if a.json:
         _emit(rows, True, "")
     else:
@@ -591,21 +596,26 @@ def cmd_lookup(a) -> int:
         kind = "95% interval (sampled)" if sampled else {"step-bound": "exact (step bound)",
                                                           "proofs": "exact (every run decided)"}.get(
             t.exact_by, "certified interval")
-        print(f"{'key':<20} {'count':>22} {'probability':>12}" + (f" {'std error':>10}" if sampled else "")
-              + f" {'CTM bits':>10}  {kind}")
+        lines = [f"{'key':<20} {'count':>22} {'probability':>12}" + (f" {'std error':>10}" if sampled else "")
+                 + f" {'CTM bits':>10}  {kind}, its width in bits"]
         for r in rows:
             if r.get("dropped"):
-                print(f"{r['key']:<20} {'dropped (size cut)':>22} {'':>12}" + (f" {'':>10}" if sampled else "")
-                      + f" {'':>10}  CTM >= {r['ctm_low']:.4f}"
-                      + (" (certified)" if not sampled else " (approximate 95%, from the sample)"))
+                lines.append(f"{r['key']:<20} {'dropped (size cut)':>22} {'':>12}" + (f" {'':>10}" if sampled else "")
+                             + f" {'':>10}  CTM >= {r['ctm_low']:.4f}"
+                             + (" (certified)" if not sampled else " (approximate 95%, from the sample)"))
                 continue
-            print(f"{r['key']:<20} {r['count']:>22,} {r['probability']:>12.6g}"
-                  + (f" {r['standard_error']:>10.3g}" if sampled else "")
-                  + f" {r['ctm']:>10.4f}  [{r['ctm_low']:.4f}, {r['ctm_high']:.4f}]"
-                  + ("  settled" if r.get("settled") else ""))
-    for key in rare:
-        print(f"ctmtab lookup: warning: {key} was seen in {t.seen(key):.3g} samples, fewer than "
+            # the width as well: a certified interval 1.9e-05 bits wide prints as a point at 4 decimals
+            lines.append(f"{r['key']:<20} {r['count']:>22,} {r['probability']:>12.6g}"
+                         + (f" {r['standard_error']:>10.3g}" if sampled else "")
+                         + f" {r['ctm']:>10.4f}  [{r['ctm_low']:.4f}, {r['ctm_high']:.4f}] width "
+                         + f"{r['interval_width']:.2g}" + ("  settled" if r.get("settled") else ""))
+        print("\n".join(lines))
+    for key, times in rare[:10]:
+        print(f"ctmtab lookup: warning: {key} was seen in {times:.3g} samples, fewer than "
               f"--min-seen {a.min_seen}; its estimate is rough", file=sys.stderr)
+    if len(rare) > 10:
+        print(f"ctmtab lookup: warning: {len(rare) - 10:,} more keys were seen in fewer than --min-seen "
+              f"{a.min_seen} samples (--json marks each as rare)", file=sys.stderr)
     return 0
 
 
