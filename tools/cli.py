@@ -154,6 +154,19 @@ def _parser() -> argparse.ArgumentParser:
                    help=f"sampled tables: warn about keys seen in fewer than K samples; default {DEFAULT_MIN_SEEN}")
     p.add_argument("--json", action="store_true")
 
+    from .catalog import BLOCK_RULE, TIGHT_BITS
+
+    p = sub.add_parser("list", help="the shipped tables: space, cap, kind, complete sizes, BDM block, file size",
+                       description="One row per shipped table, read from its header (the body only where a "
+                                   "certified width depends on the counts). kind: exact (nothing undecided), "
+                                   "capped (exhaustive, with undecided weight at the cap) or sampled. complete: "
+                                   "the sizes held completely (every key of every size up to it). block: the "
+                                   "BDM block size it suits, " + BLOCK_RULE.format(tight=TIGHT_BITS).replace("%", "%%")
+                                   + " (--tight).")
+    p.add_argument("--tight", type=float, default=TIGHT_BITS, metavar="BITS",
+                   help=f"the widest certified interval that counts as tight for the block; default {TIGHT_BITS}")
+    p.add_argument("--json", action="store_true")
+
     p = sub.add_parser("verify", help="check checksums, invariants and symmetry closure")
     p.add_argument("tables", nargs="+")
     p.add_argument("--json", action="store_true")
@@ -619,6 +632,32 @@ def cmd_lookup(a) -> int:
     return 0
 
 
+def cmd_list(a) -> int:
+    from .catalog import BLOCK_RULE, catalog
+
+    if not (a.tight >= 0 and math.isfinite(a.tight)):
+        raise CtmtabError(f"--tight {a.tight} is not a width in bits; give a number >= 0, e.g. 0.1")
+    rows = catalog(a.tight)
+    if a.json:
+        _emit({"block_rule": BLOCK_RULE.format(tight=a.tight), "tables": rows}, True, "")
+        return 0
+    head = f"{'name':<26} {'space':<9} {'cap':>11}  {'kind':<40} {'complete':>8} {'block':>6} {'file':>9}"
+    lines = [head]
+    for r in rows:
+        kind = r["kind"] if r["kind"] == "exact" else f"{r['kind']}, {_percent(r['undecided_fraction'])} undecided"
+        if r["settled_up_to"] and r["kind"] == "capped":
+            kind += f", settled {r['settled_up_to']}"
+        complete = r["complete_up_to"] or "none"
+        complete = f"1-{complete}" if r["dims"] == 1 and complete != "none" else f"<={complete}"
+        size = r["file_bytes"]
+        size = f"{size / 1e6:.1f} MB" if size >= 1e6 else f"{size / 1e3:.1f} kB"
+        lines.append(f"{r['name']:<26} {r['space']:<9} {r['cap']:>11,}  {kind:<40} {complete:>8} "
+                     f"{str(r['block'] or '-'):>6} {size:>9}")
+    lines.append(f"block: {BLOCK_RULE.format(tight=a.tight)}")
+    print("\n".join(lines))
+    return 0
+
+
 def cmd_verify(a) -> int:
     """Every file, each reported: a table that fails is 1, a file that cannot be read 2; the
     exit code is the worst."""
@@ -795,7 +834,7 @@ def cmd_demo(a) -> int:
     return 0
 
 
-COMMANDS = {"validate": cmd_validate, "plot": cmd_plot, "demo": cmd_demo, "build": cmd_build, "info": cmd_info, "lookup": cmd_lookup, "verify": cmd_verify,
+COMMANDS = {"validate": cmd_validate, "plot": cmd_plot, "demo": cmd_demo, "build": cmd_build, "info": cmd_info, "lookup": cmd_lookup, "list": cmd_list, "verify": cmd_verify,
             "merge": cmd_merge, "trim": cmd_trim, "export": cmd_export, "run": cmd_run}
 
 
