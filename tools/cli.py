@@ -189,11 +189,13 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--format", choices=("csv", "json"), default="csv")
     p.add_argument("-o", "--output", help="file to write; default stdout")
 
-    p = sub.add_parser("validate", help="compare an estimator with the exact CTM of every key")
+    p = sub.add_parser("validate", help="compare an estimator with the CTM of every key (exact, or a capped or "
+                                        "sampled table's reference values)")
     p.add_argument("table")
     src = p.add_mutually_exclusive_group(required=True)
     src.add_argument("--estimator", metavar="SPEC",
-                     help="zlib, lzma, bz2, entropy, or module:function taking a key text")
+                     help="zlib, lzma, bz2, entropy, or module:function taking a key text; the module is "
+                          "looked for in the current folder first, then on the Python path")
     src.add_argument("--values", metavar="FILE.csv", help="key,value rows")
     p.add_argument("--sizes", help="lengths (1D) or RxC shapes (2D): 5-11 or 3x3,4x4; default all")
     p.add_argument("--worst", type=int, default=10, help="disagreements to list; default 10")
@@ -789,22 +791,29 @@ def cmd_validate(a) -> int:
     if a.json:
         _emit(rep.to_dict(), True, "")
         return 0
-    print(f"{rep.scored:,} of {rep.keys:,} keys scored ({rep.coverage:.1%})")
-    if "all" in rep.undefined:  # NaN in words: no rank correlation exists here
-        print(f"Spearman and Kendall undefined ({rep.undefined['all']})   "
-              f"mean absolute error after a linear fit {rep.mae_linear:.3f} bits")
+    ref = f"{rep.reference} CTM" + (" of a sampled table" if rep.sampled else "")
+    print(f"{rep.scored:,} of {rep.keys:,} keys scored ({rep.coverage:.1%}), against the {ref}")
+    # within sizes first: pooled over lengths, a correlation mostly says that longer keys score higher
+    if "within" in rep.undefined:
+        print(f"within sizes: Spearman and Kendall undefined ({rep.undefined['within']})")
     else:
-        print(f"Spearman {rep.spearman:+.4f}   Kendall {rep.kendall:+.4f}   "
-              f"mean absolute error after a linear fit {rep.mae_linear:.3f} bits")
+        print(f"within sizes: Spearman {rep.spearman:+.4f}   Kendall {rep.kendall:+.4f}   "
+              "(the per-size correlations' mean, weighted by keys scored)")
+    if "pooled" in rep.undefined:  # NaN in words: no rank correlation exists here
+        print(f"pooled:       Spearman and Kendall undefined ({rep.undefined['pooled']})")
+    else:
+        print(f"pooled:       Spearman {rep.spearman_pooled:+.4f}   Kendall {rep.kendall_pooled:+.4f}   "
+              "(every size at once, so key length weighs in)")
+    print(f"mean absolute error after a linear fit {rep.mae_linear:.3f} bits")
     print(f"{'size':>6} {'keys':>7} {'Spearman':>9} {'Kendall':>9}")
     for s, r in rep.by_size.items():
         if s in rep.undefined:
             print(f"{s:>6} {r['keys']:>7} {'undefined':>9} ({rep.undefined[s]} at this size)")
         else:
             print(f"{s:>6} {r['keys']:>7} {r['spearman']:>+9.3f} {r['kendall']:>+9.3f}")
-    print("worst disagreements (exact CTM vs the fitted estimate):")
+    print(f"worst disagreements ({ref} vs the fitted estimate):")
     for w in rep.worst:
-        print(f"  {w['key']:>16}  exact {w['exact']:8.3f}  fitted {w['fitted']:8.3f}")
+        print(f"  {w['key']:>16}  {rep.reference} {w['reference']:8.3f}  fitted {w['fitted']:8.3f}")
     return 0
 
 
