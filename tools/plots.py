@@ -63,15 +63,10 @@ def plot_table(table, folder) -> list[Path]:
 
 
 def _ctm_errors(table) -> np.ndarray:
-    """A sampled table's CTM standard errors in bits, se(p) / (p ln 2), in group order."""
+    """A sampled table's CTM standard errors in bits, in group order."""
     from ..tables import sampled
 
-    parts = []
-    for g in table.groups.values():
-        counts = np.asarray(g.counts, dtype=float)
-        se = sampled.errors(table, counts, np.asarray(g.moments, dtype=float))
-        parts.append(se / (counts / table.total) / math.log(2))
-    return np.concatenate(parts)
+    return np.concatenate([sampled.ctm_errors(table, g) for g in table.groups.values()])
 
 
 FIGURE_FORMATS = ("png", "pdf", "svg")

@@ -16,7 +16,7 @@ import numpy as np
 
 from ..errors import CtmtabError
 from ..extras import require
-from ..tables import keys
+from ..tables import keys, sampled
 from .baselines import CODECS, block_entropy, compressed_bits
 
 BUILTINS = ("zlib", "lzma", "bz2", "entropy")
@@ -233,12 +233,14 @@ def validate(table, estimator=None, values: dict | None = None, sizes=None, wors
     if values is not None:
         values = canonical_values(table, values)
     shapes = table.shapes if sizes is None else [(s,) if isinstance(s, int) else tuple(s) for s in sizes]
-    keys, exact, est, size = [], [], [], []
+    keys, exact, est, size, errs = [], [], [], [], []
     rare = 0
     log_total = math.log2(table.total) if table.total else math.nan
     for shape in shapes:
         if shape in table.groups and table.mode == "sampled" and table.min_seen > 0:
             rare += int(np.count_nonzero(table.group_seen(table.groups[shape]) < table.min_seen))
+        if table.mode == "sampled" and shape in table.groups:  # items() runs in group order
+            errs.append(sampled.ctm_errors(table, table.groups[shape]))
         for key, count in table.items(shape):
             keys.append(key)
             exact.append(log_total - math.log2(count))  # table.ctm(key), without a lookup per key
@@ -295,22 +297,6 @@ def validate(table, estimator=None, values: dict | None = None, sizes=None, wors
     kept = np.array(keys)[ok]
     worst_rows = [{"key": str(kept[i]), "reference": float(e[i]), "estimate": float(v[i]),
                    "fitted": float(slope * v[i] + intercept)} for i in order]
-    errors = _ctm_errors(table, keys, ok) if table.mode == "sampled" else None
+    errors = np.concatenate(errs)[ok] if table.mode == "sampled" else None
     return Report(len(keys), int(ok.sum()), rho_in, tau_in, mae, float(slope), float(intercept),
                   by_size, worst_rows, (e, v), rare, undefined, rho, tau, ref, table.mode == "sampled", errors)
-
-
-def _ctm_errors(table, keys: list, ok: np.ndarray) -> np.ndarray:
-    """The standard error, in bits, of each scored key's CTM in a sampled table: se(p) / (p ln 2)."""
-    out = np.full(len(keys), math.nan)
-    scored = [k for k, good in zip(keys, ok) if good]
-    if scored:
-        import warnings
-
-        from ..errors import RareKeyWarning
-
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RareKeyWarning)  # counted in the report's rare keys
-            got = table.lookup(scored, missing="nan")
-        out[ok] = got["standard_error"] / (got["probability"] * math.log(2))
-    return out[ok]
