@@ -843,8 +843,11 @@ def cmd_demo(a) -> int:
     return 0
 
 
-COMMANDS = {"validate": cmd_validate, "plot": cmd_plot, "demo": cmd_demo, "build": cmd_build, "info": cmd_info, "lookup": cmd_lookup, "list": cmd_list, "verify": cmd_verify,
+COMMANDS = {"validate": cmd_validate, "plot": cmd_plot, "demo": cmd_demo, "build": cmd_build, "info": cmd_info, "lookup": cmd_lookup, "verify": cmd_verify,
             "merge": cmd_merge, "trim": cmd_trim, "export": cmd_export, "run": cmd_run}
+
+
+COMMANDS["list"] = cmd_list  # its own line: other branches add commands to the table above
 
 
 _OS_HINTS = {
