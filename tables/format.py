@@ -65,8 +65,9 @@ def encode(header: dict, body: dict) -> bytes:
     return pre + head + compressed
 
 
-def read_header(data: bytes, where: str = "table") -> tuple[dict, int]:
-    """Check the preamble and header; return the header and the body offset."""
+def read_header(data: bytes, where: str = "table", size: int | None = None) -> tuple[dict, int]:
+    """Check the preamble and header; return the header and the body offset. size: the whole
+    file's length where data holds only its start (the preamble and the header)."""
     if len(data) < len(MAGIC) or data[: len(MAGIC)] != MAGIC:
         if len(data) < len(MAGIC) and MAGIC.startswith(data):
             raise TruncatedError(f"{where}: the file ends inside the magic bytes; the download is incomplete")
@@ -81,8 +82,8 @@ def read_header(data: bytes, where: str = "table") -> tuple[dict, int]:
         )
     if head_len > MAX_HEADER:
         raise SizeLimitError(f"{where}: the header declares {head_len} bytes, over the {MAX_HEADER} limit")
-    rest = len(data) - PREAMBLE.size  # subtract, never add: no overflow
-    if head_len > rest:
+    rest = (len(data) if size is None else size) - PREAMBLE.size  # subtract, never add: no overflow
+    if head_len > min(rest, len(data) - PREAMBLE.size):
         raise TruncatedError(f"{where}: the file ends inside the header; the download is incomplete, fetch it again")
     if body_len > rest - head_len:
         raise TruncatedError(f"{where}: the file ends inside the body; the download is incomplete, fetch it again")

@@ -97,6 +97,22 @@ def load(name_or_path, *, max_body: int = fmt.MAX_BODY) -> Table:
     return loads(read_file(path, max_body), max_body=max_body, where=str(path))
 
 
+def load_header(name_or_path) -> tuple[dict, int]:
+    """The checked header of a table (by path or shipped name) and the file's size, reading only
+    the preamble and the header: the body is neither read nor checked."""
+    path = resolve(name_or_path)
+    st = os.stat(path)
+    if not stat.S_ISREG(st.st_mode):
+        raise _not_regular(path, st.st_mode)
+    with open(path, "rb") as f:
+        start = f.read(fmt.PREAMBLE.size)
+        head_len = fmt.PREAMBLE.unpack_from(start)[3] if len(start) == fmt.PREAMBLE.size else 0
+        start += f.read(min(head_len, fmt.MAX_HEADER))
+    header, _ = fmt.read_header(start, str(path), size=st.st_size)
+    check_header(header, str(path))
+    return header, st.st_size
+
+
 _KINDS = [(stat.S_ISDIR, "a folder"), (stat.S_ISFIFO, "a FIFO (named pipe)"), (stat.S_ISCHR, "a character device"),
           (stat.S_ISBLK, "a block device"), (stat.S_ISSOCK, "a socket")]
 

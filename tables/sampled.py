@@ -90,6 +90,18 @@ def seen_of(s1, s2):
     return s1 * s1 / s2
 
 
+def ctm_errors(t, g: Group) -> np.ndarray:
+    """The standard error of each key's CTM in one group, in bits: se(p) / (p ln 2) (delta method)."""
+    counts = np.asarray(g.counts, dtype=np.float64)
+    return errors(t, counts, np.asarray(g.moments, dtype=np.float64)) / (counts / t.total) / math.log(2)
+
+
+def unseen_bound(t) -> float:
+    """The CTM lower bound of a key never seen in H halting samples: p <= 3/H at 95% (the rule
+    of three)."""
+    return math.log2(t.halting / 3) if t.halting > 3 else 0.0
+
+
 def interval95(p, se):
     """CTM bounds, in bits, of the approximate 95% interval p +- 1.96 se (numpy); inf where a
     bound of the probability is not above 0."""

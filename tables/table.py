@@ -353,8 +353,8 @@ class Table:
             return self.dropped_bound(shape), math.inf
         if self.mode == "sampled":
             c = self.count(key)
-            if c == 0:  # never seen in H halting samples: p <= 3/H at 95% (the rule of three)
-                return (math.log2(self.halting / 3) if self.halting > 3 else 0.0), math.inf
+            if c == 0:
+                return sampled.unseen_bound(self), math.inf
             sampled.warn_rare(self, key, c)
             low, high = sampled.interval95(np.float64(c / self.total), np.float64(sampled.standard_error(self, key)))
             return float(low), float(high)

@@ -19,7 +19,7 @@ def built(tmp_path_factory):
 
 
 def test_help_everywhere():
-    for cmd in ("build", "info", "lookup", "verify", "merge", "export", "run"):
+    for cmd in ("build", "info", "lookup", "list", "verify", "merge", "export", "run"):
         r = ctm(cmd, "--help")
         assert r.returncode == 0 and "usage:" in r.stdout
 

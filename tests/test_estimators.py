@@ -101,8 +101,9 @@ def test_rank_correlations_by_hand_with_ties(t5):
 def test_zlib_ranks_short_strings_poorly(t5):
     rep = validate(t5, builtin("zlib"), sizes=range(5, 12))
     # short strings: compressed length agrees with CTM far from perfectly (common practice);
-    # measured here, Spearman about 0.57 for lengths 5..11 of the (5,2) table (README.md)
-    assert rep.spearman < 0.99
+    # measured here, Spearman about 0.50 within sizes (0.57 pooled) for lengths 5..11 of the (5,2)
+    # table (README.md)
+    assert rep.spearman < 0.99 and rep.spearman_pooled < 0.99
 
 
 def test_exact_table_against_itself_and_shuffled(t5):

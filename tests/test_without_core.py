@@ -59,6 +59,7 @@ CLI = "from ctmtab.tools.cli import main; sys.exit(main(sys.argv[1:]))"
 @pytest.mark.parametrize("args", [
     ["info", "1d-n3-m2-t21", "--json"],
     ["lookup", "1d-n4-m2-t107", "0110", "--json"],
+    ["list", "--json"],
     ["verify", "1d-n3-m2-t21", "2d-n2-m2-t2000"],
 ])
 def test_reading_commands_need_no_core(args):

@@ -56,7 +56,7 @@ assert t.lookup(np.array([[0, 1, 1, 0]]))["count"][0] == t.count("0110")
 assert BDM(load("1d-n5-m2-t500"), 11, mode="shrink")("0110" * 12) > 0
 assert problems(t) == [] and problems(load("2d-n3-m2-t2000")) == []
 for args in (["info", "1d-n3-m2-t21"], ["lookup", "1d-n4-m2-t107", "0110", "--json"],
-             ["verify", "1d-n3-m2-t21"], ["export", "1d-n3-m2-t21"]):
+             ["verify", "1d-n3-m2-t21"], ["export", "1d-n3-m2-t21"], ["list"]):
     with contextlib.redirect_stdout(io.StringIO()):
         assert main(args) == 0, args
 for name in ("matplotlib", "scipy", "dask", "distributed"):

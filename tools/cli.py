@@ -32,6 +32,22 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"{self.prog}: {message}; see {self.prog} --help\n")
 
 
+class _KeysParser(_Parser):
+    """lookup's parser: Python 3.11 leaves keys after an option (lookup T --missing nan 0110)
+    unmatched once the keys may be none (--keys-from), so it parses them intermixed."""
+
+    _inner = False
+
+    def parse_known_args(self, args=None, namespace=None):
+        if self._inner:  # the intermixed parse calls back here
+            return super().parse_known_args(args, namespace)
+        self._inner = True
+        try:
+            return self.parse_known_intermixed_args(args, namespace)
+        finally:
+            self._inner = False
+
+
 SPACE_DEFAULTS = {"dims": 1, "states": 3, "symbols": 2}
 
 
@@ -126,10 +142,15 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="machine-readable output")
 
     p = sub.add_parser("lookup", help="count, probability and CTM of keys")
+    p.__class__ = _KeysParser  # keys may follow the options
     p.add_argument("table")
-    p.add_argument("keys", nargs="+", help='keys such as 0110 (1D) or 01/10 (2D rows)')
+    p.add_argument("keys", nargs="*", help='keys such as 0110 (1D) or 01/10 (2D rows)')
+    p.add_argument("--keys-from", metavar="FILE", action="append", default=[],
+                   help="also read keys from FILE, one a line (blank lines skipped); - reads stdin. "
+                        "Rows follow the order given: the command line's keys first")
     p.add_argument("--missing", choices=("raise", "nan", "fallback"), default="raise",
-                   help="keys never produced: fail (default), NaN, or the fallback value")
+                   help="keys never produced: fail at the first (default), or go on with a row of NaN "
+                        "or of the fallback value for each")
     p.add_argument("--min-seen", type=int, default=DEFAULT_MIN_SEEN, metavar="K",
                    help=f"sampled tables: warn about keys seen in fewer than K samples; default {DEFAULT_MIN_SEEN}")
     p.add_argument("--json", action="store_true")
@@ -149,6 +170,19 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--min-seen", type=int, default=DEFAULT_MIN_SEEN, metavar="K",
                    help=f"sampled tables: a block seen in fewer than K samples is rare; default {DEFAULT_MIN_SEEN}")
     p.add_argument("--json", action="store_true", help="a list of objects, one per input")
+
+    from .catalog import BLOCK_RULE, TIGHT_BITS
+
+    p = sub.add_parser("list", help="the shipped tables: space, cap, kind, complete sizes, BDM block, file size",
+                       description="One row per shipped table, read from its header (the body only where a "
+                                   "certified width depends on the counts). kind: exact (nothing undecided), "
+                                   "capped (exhaustive, with undecided weight at the cap) or sampled. complete: "
+                                   "the sizes held completely (every key of every size up to it). block: the "
+                                   "BDM block size it suits, " + BLOCK_RULE.format(tight=TIGHT_BITS).replace("%", "%%")
+                                   + " (--tight).")
+    p.add_argument("--tight", type=float, default=TIGHT_BITS, metavar="BITS",
+                   help=f"the widest certified interval that counts as tight for the block; default {TIGHT_BITS}")
+    p.add_argument("--json", action="store_true")
 
     p = sub.add_parser("verify", help="check checksums, invariants and symmetry closure")
     p.add_argument("tables", nargs="+")
@@ -173,11 +207,13 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--format", choices=("csv", "json"), default="csv")
     p.add_argument("-o", "--output", help="file to write; default stdout")
 
-    p = sub.add_parser("validate", help="compare an estimator with the exact CTM of every key")
+    p = sub.add_parser("validate", help="compare an estimator with the CTM of every key (exact, or a capped or "
+                                        "sampled table's reference values)")
     p.add_argument("table")
     src = p.add_mutually_exclusive_group(required=True)
     src.add_argument("--estimator", metavar="SPEC",
-                     help="zlib, lzma, bz2, entropy, or module:function taking a key text")
+                     help="zlib, lzma, bz2, entropy, or module:function taking a key text; the module is "
+                          "looked for in the current folder first, then on the Python path")
     src.add_argument("--values", metavar="FILE.csv", help="key,value rows")
     p.add_argument("--sizes", help="lengths (1D) or RxC shapes (2D): 5-11 or 3x3,4x4; default all")
     p.add_argument("--worst", type=int, default=10, help="disagreements to list; default 10")
@@ -573,35 +609,19 @@ def _certificate_lines(t) -> list:
 
 
 def cmd_lookup(a) -> int:
-    import warnings
-
     from ..tables import load
+    from .lookups import look_up, read_keys
 
     if a.min_seen < 0:
         raise CtmtabError(f"--min-seen {a.min_seen} is negative; give 0 (no warnings) or more")
+    if a.keys_from.count("-") > 1:
+        raise CtmtabError("--keys-from - is given twice; stdin can be read once")
+    typed = [(None, k) for k in a.keys] + [x for src in a.keys_from for x in read_keys(src)]
+    if not typed:
+        raise CtmtabError("no keys to look up; give keys such as 0110, or --keys-from FILE (- for stdin)")
     t = load(a.table)
     t.min_seen = a.min_seen
-    rows, rare = [], []
-    for typed in a.keys:
-        shape, cells = t.parse_key(typed)
-        key = t.key_text(shape, cells)  # the one spelling, as export writes it
-        if t.dropped(shape):  # cut from the table: a bound, never a value
-            rows.append({"key": key, "table": t.source, "dropped": True, "count": None, "probability": None, "ctm": None,
-                         "ctm_low": t.dropped_bound(shape), "ctm_high": math.inf})
-            continue
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", RareKeyWarning)
-            c = t.count(key)
-            ctm = t.ctm(key, missing=a.missing)
-            low, high = t.interval(key)
-        rare += [key] if any(issubclass(w.category, RareKeyWarning) for w in caught) else []
-        row = {"key": key, "table": t.source, "count": c, "probability": c / t.total, "ctm": ctm, "ctm_low": low, "ctm_high": high}
-        if t.mode == "sampled":
-            row["standard_error"] = t.standard_error(key)
-            row["rare"] = key in rare
-        elif t.settle_size is not None:  # its interval bounds the unbounded-time value with every run settled
-            row["settled"] = max(shape) <= t.settle_size
-        rows.append(row)
+    rows, rare = look_up(t, typed, a.missing)
     if a.json:
         _emit(rows, True, "")
     else:
@@ -609,21 +629,52 @@ def cmd_lookup(a) -> int:
         kind = "95% interval (sampled)" if sampled else {"step-bound": "exact (step bound)",
                                                           "proofs": "exact (every run decided)"}.get(
             t.exact_by, "certified interval")
-        print(f"{'key':<20} {'count':>22} {'probability':>12}" + (f" {'std error':>10}" if sampled else "")
-              + f" {'CTM bits':>10}  {kind}")
+        lines = [f"{'key':<20} {'count':>22} {'probability':>12}" + (f" {'std error':>10}" if sampled else "")
+                 + f" {'CTM bits':>10}  {kind}, its width in bits"]
         for r in rows:
             if r.get("dropped"):
-                print(f"{r['key']:<20} {'dropped (size cut)':>22} {'':>12}" + (f" {'':>10}" if sampled else "")
-                      + f" {'':>10}  CTM >= {r['ctm_low']:.4f}"
-                      + (" (certified)" if not sampled else " (approximate 95%, from the sample)"))
+                lines.append(f"{r['key']:<20} {'dropped (size cut)':>22} {'':>12}" + (f" {'':>10}" if sampled else "")
+                             + f" {'':>10}  CTM >= {r['ctm_low']:.4f}"
+                             + (" (certified)" if not sampled else " (approximate 95%, from the sample)"))
                 continue
-            print(f"{r['key']:<20} {r['count']:>22,} {r['probability']:>12.6g}"
-                  + (f" {r['standard_error']:>10.3g}" if sampled else "")
-                  + f" {r['ctm']:>10.4f}  [{r['ctm_low']:.4f}, {r['ctm_high']:.4f}]"
-                  + ("  settled" if r.get("settled") else ""))
-    for key in rare:
-        print(f"ctmtab lookup: warning: {key} was seen in {t.seen(key):.3g} samples, fewer than "
+            # the width as well: a certified interval 1.9e-05 bits wide prints as a point at 4 decimals
+            lines.append(f"{r['key']:<20} {r['count']:>22,} {r['probability']:>12.6g}"
+                         + (f" {r['standard_error']:>10.3g}" if sampled else "")
+                         + f" {r['ctm']:>10.4f}  [{r['ctm_low']:.4f}, {r['ctm_high']:.4f}] width "
+                         + f"{r['interval_width']:.2g}" + ("  settled" if r.get("settled") else ""))
+        print("\n".join(lines))
+    for key, times in rare[:10]:
+        print(f"ctmtab lookup: warning: {key} was seen in {times:.3g} samples, fewer than "
               f"--min-seen {a.min_seen}; its estimate is rough", file=sys.stderr)
+    if len(rare) > 10:
+        print(f"ctmtab lookup: warning: {len(rare) - 10:,} more keys were seen in fewer than --min-seen "
+              f"{a.min_seen} samples (--json marks each as rare)", file=sys.stderr)
+    return 0
+
+
+def cmd_list(a) -> int:
+    from .catalog import BLOCK_RULE, catalog
+
+    if not (a.tight >= 0 and math.isfinite(a.tight)):
+        raise CtmtabError(f"--tight {a.tight} is not a width in bits; give a number >= 0, e.g. 0.1")
+    rows = catalog(a.tight)
+    if a.json:
+        _emit({"block_rule": BLOCK_RULE.format(tight=a.tight), "tables": rows}, True, "")
+        return 0
+    head = f"{'name':<26} {'space':<9} {'cap':>11}  {'kind':<40} {'complete':>8} {'block':>6} {'file':>9}"
+    lines = [head]
+    for r in rows:
+        kind = r["kind"] if r["kind"] == "exact" else f"{r['kind']}, {_percent(r['undecided_fraction'])} undecided"
+        if r["settled_up_to"] and r["kind"] == "capped":
+            kind += f", settled {r['settled_up_to']}"
+        complete = r["complete_up_to"] or "none"
+        complete = f"1-{complete}" if r["dims"] == 1 and complete != "none" else f"<={complete}"
+        size = r["file_bytes"]
+        size = f"{size / 1e6:.1f} MB" if size >= 1e6 else f"{size / 1e3:.1f} kB"
+        lines.append(f"{r['name']:<26} {r['space']:<9} {r['cap']:>11,}  {kind:<40} {complete:>8} "
+                     f"{str(r['block'] or '-'):>6} {size:>9}")
+    lines.append(f"block: {BLOCK_RULE.format(tight=a.tight)}")
+    print("\n".join(lines))
     return 0
 
 
@@ -904,22 +955,29 @@ def cmd_validate(a) -> int:
     if a.json:
         _emit(rep.to_dict(), True, "")
         return 0
-    print(f"{rep.scored:,} of {rep.keys:,} keys scored ({rep.coverage:.1%})")
-    if "all" in rep.undefined:  # NaN in words: no rank correlation exists here
-        print(f"Spearman and Kendall undefined ({rep.undefined['all']})   "
-              f"mean absolute error after a linear fit {rep.mae_linear:.3f} bits")
+    ref = f"{rep.reference} CTM" + (" of a sampled table" if rep.sampled else "")
+    print(f"{rep.scored:,} of {rep.keys:,} keys scored ({rep.coverage:.1%}), against the {ref}")
+    # within sizes first: pooled over lengths, a correlation mostly says that longer keys score higher
+    if "within" in rep.undefined:
+        print(f"within sizes: Spearman and Kendall undefined ({rep.undefined['within']})")
     else:
-        print(f"Spearman {rep.spearman:+.4f}   Kendall {rep.kendall:+.4f}   "
-              f"mean absolute error after a linear fit {rep.mae_linear:.3f} bits")
+        print(f"within sizes: Spearman {rep.spearman:+.4f}   Kendall {rep.kendall:+.4f}   "
+              "(the per-size correlations' mean, weighted by keys scored)")
+    if "pooled" in rep.undefined:  # NaN in words: no rank correlation exists here
+        print(f"pooled:       Spearman and Kendall undefined ({rep.undefined['pooled']})")
+    else:
+        print(f"pooled:       Spearman {rep.spearman_pooled:+.4f}   Kendall {rep.kendall_pooled:+.4f}   "
+              "(every size at once, so key length weighs in)")
+    print(f"mean absolute error after a linear fit {rep.mae_linear:.3f} bits")
     print(f"{'size':>6} {'keys':>7} {'Spearman':>9} {'Kendall':>9}")
     for s, r in rep.by_size.items():
         if s in rep.undefined:
             print(f"{s:>6} {r['keys']:>7} {'undefined':>9} ({rep.undefined[s]} at this size)")
         else:
             print(f"{s:>6} {r['keys']:>7} {r['spearman']:>+9.3f} {r['kendall']:>+9.3f}")
-    print("worst disagreements (exact CTM vs the fitted estimate):")
+    print(f"worst disagreements ({ref} vs the fitted estimate):")
     for w in rep.worst:
-        print(f"  {w['key']:>16}  exact {w['exact']:8.3f}  fitted {w['fitted']:8.3f}")
+        print(f"  {w['key']:>16}  {rep.reference} {w['reference']:8.3f}  fitted {w['fitted']:8.3f}")
     return 0
 
 
@@ -949,8 +1007,9 @@ def cmd_demo(a) -> int:
     return 0
 
 
-COMMANDS = {"bdm": cmd_bdm, "validate": cmd_validate, "plot": cmd_plot, "demo": cmd_demo, "build": cmd_build, "info": cmd_info, "lookup": cmd_lookup, "verify": cmd_verify,
-            "merge": cmd_merge, "cut": cmd_cut, "trim": cmd_cut, "export": cmd_export, "run": cmd_run}
+COMMANDS = {"bdm": cmd_bdm, "validate": cmd_validate, "plot": cmd_plot, "demo": cmd_demo, "build": cmd_build,
+            "info": cmd_info, "lookup": cmd_lookup, "list": cmd_list, "verify": cmd_verify, "merge": cmd_merge,
+            "cut": cmd_cut, "trim": cmd_cut, "export": cmd_export, "run": cmd_run}
 
 
 _OS_HINTS = {

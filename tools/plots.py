@@ -26,14 +26,21 @@ def plot_table(table, folder) -> list[Path]:
     plt = _plt()
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-    label = f"{table.space.label}, cap {table.cap}"
+    sampled = table.mode == "sampled"
+    label = f"{table.space.label}, cap {table.cap}" + (", sampled" if sampled else "")
     out = []
-    ctm = np.sort(np.concatenate([math.log2(table.total) - np.log2(np.asarray(g.counts, dtype=float))
-                                  for g in table.groups.values()]))
+    counts = np.concatenate([np.asarray(g.counts, dtype=float) for g in table.groups.values()])
+    order = np.argsort(-counts, kind="stable")
+    ctm = math.log2(table.total) - np.log2(counts[order])
     fig, ax = plt.subplots(figsize=(6, 4))
-    ax.plot(np.arange(1, len(ctm) + 1), ctm, lw=1)
+    ranks = np.arange(1, len(ctm) + 1)
+    ax.plot(ranks, ctm, lw=1)
+    if sampled:  # the estimates' approximate 95% band, from the table's standard errors
+        se = _ctm_errors(table)[order]
+        ax.fill_between(ranks, ctm - 1.96 * se, ctm + 1.96 * se, alpha=0.3, lw=0, label="approximate 95% band")
+        ax.legend(loc="upper left")  # "best" scans every point
     ax.set_xscale("log")
-    ax.set(xlabel="rank", ylabel="CTM (bits)", title=f"CTM by rank — {label}")
+    ax.set(xlabel="rank", ylabel="CTM (bits)" + (", estimated" if sampled else ""), title=f"CTM by rank — {label}")
     out.append(_save(fig, folder / "ctm-rank.png"))
     fig, ax = plt.subplots(figsize=(6, 4))
     steps = np.asarray(table.steps_hist, dtype=float)
@@ -55,6 +62,13 @@ def plot_table(table, folder) -> list[Path]:
     return out
 
 
+def _ctm_errors(table) -> np.ndarray:
+    """A sampled table's CTM standard errors in bits, in group order."""
+    from ..tables import sampled
+
+    return np.concatenate([sampled.ctm_errors(table, g) for g in table.groups.values()])
+
+
 FIGURE_FORMATS = ("png", "pdf", "svg")
 
 
@@ -74,19 +88,26 @@ def _corr_text(value: float) -> str:
 
 
 def plot_report(report, path, title: str = "") -> Path:
-    """Scatter of exact against estimated, and the rank correlation per size. The format
+    """Scatter of the table's CTM against the estimate (with error bars from a sampled table), and
+    the rank correlation per size. The format
     follows the file name: .png, .pdf or .svg."""
     kind = figure_format(path)
     plt = _plt()
     exact, est = report.pairs
+    ref = f"{report.reference} CTM" + (", sampled" if report.sampled else "")
     fig, (a, b) = plt.subplots(1, 2, figsize=(11, 4.5))
-    a.scatter(est, exact, s=6, alpha=0.4)
+    if report.sampled and report.errors is not None:  # estimates: each with its 95% error bar
+        a.errorbar(est, exact, yerr=1.96 * report.errors, fmt="o", ms=2, alpha=0.4, elinewidth=0.6,
+                   label="±1.96 standard errors")
+    else:
+        a.scatter(est, exact, s=6, alpha=0.4)
     if len(est):
         xs = np.linspace(np.min(est), np.max(est), 50)
         a.plot(xs, report.slope * xs + report.intercept, color="red", lw=1, label="linear fit")
-        a.legend()
-    a.set(xlabel="estimate", ylabel="exact CTM (bits)",
-          title=f"{title} Spearman {_corr_text(report.spearman)}, Kendall {_corr_text(report.kendall)}")
+        a.legend(loc="upper left")  # "best" scans every point
+    a.set(xlabel="estimate", ylabel=f"{ref} (bits)",
+          title=f"{title} within sizes: Spearman {_corr_text(report.spearman)}, Kendall "
+                f"{_corr_text(report.kendall)}\npooled: Spearman {_corr_text(report.spearman_pooled)}")
     names = list(report.by_size)
     b.bar(range(len(names)), [report.by_size[n]["spearman"] for n in names])
     b.set_xticks(range(len(names)), names, rotation=90 if len(names) > 12 else 0)

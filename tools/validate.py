@@ -1,4 +1,10 @@
-"""Validating any estimator against a table's exact CTM values."""
+"""Validating any estimator against a table's CTM values: exact ones, or for capped and sampled
+tables the reference values they give.
+
+Longer keys have larger CTM and so do most estimates of them, so a correlation over keys of
+every length mostly measures that keys differ in length. The headline is therefore the mean of
+the correlations within each size, weighted by the keys scored at each size; the pooled figure
+comes second, labelled pooled."""
 from __future__ import annotations
 
 import csv
@@ -10,7 +16,7 @@ import numpy as np
 
 from ..errors import CtmtabError
 from ..extras import require
-from ..tables import keys
+from ..tables import keys, sampled
 from .baselines import CODECS, block_entropy, compressed_bits
 
 BUILTINS = ("zlib", "lzma", "bz2", "entropy")
@@ -34,14 +40,31 @@ def resolve(spec: str):
         raise CtmtabError(f"estimator {spec!r} names no module or no function; give module:function, "
                           "e.g. mypkg.scores:score")
     try:
-        found = getattr(importlib.import_module(mod), fn)
+        found = getattr(_import_here(mod), fn)
     except Exception as exc:  # any failure while importing user code is bad input, not a crash
-        raise CtmtabError(f"cannot import estimator {spec!r} ({_one_line(exc)}); "
-                          "give module:function on PYTHONPATH") from None
+        raise CtmtabError(f"cannot import estimator {spec!r} ({_one_line(exc)}); give module:function "
+                          "in the current folder or on PYTHONPATH") from None
     if not callable(found):
         raise CtmtabError(f"estimator {spec!r} names a {type(found).__name__} value, not a function; "
                           "give module:function")
     return found
+
+
+def _import_here(name: str):
+    """Import a user's module as `python -c` would: from the current folder first. The console
+    script's sys.path lacks it, so it goes in for this import only."""
+    import os
+    import sys
+
+    here = os.getcwd()
+    sys.path.insert(0, here)
+    try:
+        return importlib.import_module(name)
+    finally:
+        try:
+            sys.path.remove(here)  # the first entry equal to it: the one put in above
+        except ValueError:
+            pass
 
 
 def _one_line(exc: BaseException) -> str:
@@ -149,20 +172,28 @@ def canonical_values(table, values: dict) -> dict:
     return out
 
 
+WITHIN = "mean of the per-size correlations, weighted by the keys scored at each size"
+
+
 @dataclass
 class Report:
     keys: int
     scored: int
-    spearman: float
+    spearman: float  # within sizes (WITHIN): the headline
     kendall: float
     mae_linear: float
     slope: float
     intercept: float
     by_size: dict = field(default_factory=dict)
     worst: list = field(default_factory=list)
-    pairs: tuple = (None, None)  # exact, estimated arrays (for plots)
+    pairs: tuple = (None, None)  # reference CTM, estimated arrays (for plots)
     rare: int = 0  # sampled tables: keys scored that were seen in fewer than table.min_seen samples
-    undefined: dict = field(default_factory=dict)  # "all" or a size -> why its correlations are NaN
+    undefined: dict = field(default_factory=dict)  # "within", "pooled" or a size -> why its correlations are NaN
+    spearman_pooled: float = math.nan  # over every key at once: driven by key length
+    kendall_pooled: float = math.nan
+    reference: str = "exact"  # "exact", or "reference" for a capped or sampled table
+    sampled: bool = False
+    errors: np.ndarray | None = None  # sampled tables: each scored key's CTM standard error, bits
 
     @property
     def coverage(self) -> float:
@@ -170,19 +201,23 @@ class Report:
 
     def to_dict(self) -> dict:
         return {"keys": self.keys, "scored": self.scored, "coverage": self.coverage,
-                "spearman": self.spearman, "kendall": self.kendall, "mae_after_linear_fit": self.mae_linear,
+                "spearman": self.spearman, "kendall": self.kendall, "headline": WITHIN,
+                "spearman_pooled": self.spearman_pooled, "kendall_pooled": self.kendall_pooled,
+                "reference": f"{self.reference} CTM" + (" (sampled)" if self.sampled else ""),
+                "mae_after_linear_fit": self.mae_linear,
                 "fit": {"slope": self.slope, "intercept": self.intercept},
-                "by_size": self.by_size, "worst": self.worst, "rare_keys": self.rare}
+                "by_size": self.by_size, "worst": self.worst, "rare_keys": self.rare,
+                "undefined": self.undefined}
 
 
-def _corr(exact: np.ndarray, est: np.ndarray) -> tuple:
+def _corr(exact: np.ndarray, est: np.ndarray, ref: str = "exact") -> tuple:
     """(Spearman, Kendall, None), or (NaN, NaN, why in words) where no rank correlation exists."""
     from scipy import stats
 
     if len(exact) < 2:
         return math.nan, math.nan, "fewer than 2 keys scored"
     if np.ptp(exact) == 0:
-        return math.nan, math.nan, "every key scored has the same exact CTM"
+        return math.nan, math.nan, f"every key scored has the same {ref} CTM"
     if np.ptp(est) == 0:
         return math.nan, math.nan, "the estimator is constant"
     return float(stats.spearmanr(exact, est).statistic), float(stats.kendalltau(exact, est).statistic), None
@@ -190,19 +225,22 @@ def _corr(exact: np.ndarray, est: np.ndarray) -> tuple:
 
 def validate(table, estimator=None, values: dict | None = None, sizes=None, worst: int = 10) -> Report:
     """Score every key of the chosen sizes (lengths in 1D, shapes in 2D; default all) with the
-    estimator (a callable on the key text) or with given values, against the exact CTM."""
+    estimator (a callable on the key text) or with given values, against the table's CTM (exact,
+    or the reference values of a capped or sampled table)."""
     if (estimator is None) == (values is None):
         raise CtmtabError("give an estimator or a values file, not both")
     require("scipy.stats")  # the [stats] extra, checked before the scoring
     if values is not None:
         values = canonical_values(table, values)
     shapes = table.shapes if sizes is None else [(s,) if isinstance(s, int) else tuple(s) for s in sizes]
-    keys, exact, est, size = [], [], [], []
+    keys, exact, est, size, errs = [], [], [], [], []
     rare = 0
     log_total = math.log2(table.total) if table.total else math.nan
     for shape in shapes:
         if shape in table.groups and table.mode == "sampled" and table.min_seen > 0:
             rare += int(np.count_nonzero(table.group_seen(table.groups[shape]) < table.min_seen))
+        if table.mode == "sampled" and shape in table.groups:  # items() runs in group order
+            errs.append(sampled.ctm_errors(table, table.groups[shape]))
         for key, count in table.items(shape):
             keys.append(key)
             exact.append(log_total - math.log2(count))  # table.ctm(key), without a lookup per key
@@ -231,8 +269,9 @@ def validate(table, estimator=None, values: dict | None = None, sizes=None, wors
                f"{keys[0]!r})" if values is not None else "the estimator gave NaN or inf for every one")
         raise CtmtabError(f"none of the {len(keys):,} keys was scored: {why}")
     e, v = exact[ok], est[ok]
-    rho, tau, why = _corr(e, v)
-    undefined = {} if why is None else {"all": why}
+    ref = "exact" if table.exact else "reference"
+    rho, tau, why = _corr(e, v, ref)
+    undefined = {} if why is None else {"pooled": why}
     if ok.sum() >= 2 and np.ptp(v) > 0:
         slope, intercept = np.polyfit(v, e, 1)
     else:
@@ -243,13 +282,21 @@ def validate(table, estimator=None, values: dict | None = None, sizes=None, wors
     sizes_arr = np.array(size)
     for s in dict.fromkeys(size):
         sel = (sizes_arr == s) & ok
-        r, t, why = _corr(exact[sel], est[sel])
+        r, t, why = _corr(exact[sel], est[sel], ref)
         if why is not None:
             undefined[s] = why
         by_size[s] = {"keys": int((sizes_arr == s).sum()), "scored": int(sel.sum()), "spearman": r, "kendall": t}
+    within = [(r["scored"], r["spearman"], r["kendall"]) for s, r in by_size.items() if s not in undefined]
+    if within:
+        n = sum(w for w, _, _ in within)
+        rho_in, tau_in = (sum(w * x for w, x, _ in within) / n, sum(w * x for w, _, x in within) / n)
+    else:
+        rho_in = tau_in = math.nan
+        undefined["within"] = "no size has a rank correlation"
     order = np.argsort(-np.abs(resid))[:worst]
     kept = np.array(keys)[ok]
-    worst_rows = [{"key": str(kept[i]), "exact": float(e[i]), "estimate": float(v[i]),
+    worst_rows = [{"key": str(kept[i]), "reference": float(e[i]), "estimate": float(v[i]),
                    "fitted": float(slope * v[i] + intercept)} for i in order]
-    return Report(len(keys), int(ok.sum()), rho, tau, mae, float(slope), float(intercept),
-                  by_size, worst_rows, (e, v), rare, undefined)
+    errors = np.concatenate(errs)[ok] if table.mode == "sampled" else None
+    return Report(len(keys), int(ok.sum()), rho_in, tau_in, mae, float(slope), float(intercept),
+                  by_size, worst_rows, (e, v), rare, undefined, rho, tau, ref, table.mode == "sampled", errors)
