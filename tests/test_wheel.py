@@ -1,4 +1,5 @@
 """scripts/check_wheel.py, the check .ci/run makes of every built wheel, on made-up wheels."""
+import ast
 import subprocess
 import sys
 import zipfile
@@ -9,11 +10,23 @@ import pytest
 ROOT = Path(__file__).parent.parent
 SCRIPT = ROOT / "scripts" / "check_wheel.py"
 
-# What an install needs, listed here from the checkout by hand: the core, the tables, the modules.
+# The packages setup.py installs, read from its source (setup.py runs setup() when imported).
+_SETUP = ast.parse((ROOT / "setup.py").read_text())
+PACKAGES = next(ast.literal_eval(k.value) for node in ast.walk(_SETUP) if isinstance(node, ast.Call)
+                for k in node.keywords if k.arg == "packages")
+FOLDERS = [p.removeprefix("ctmtab.") for p in PACKAGES if p != "ctmtab"]
+
+# What an install needs, listed here from the checkout: the core, the tables, the modules.
 GOOD = (["ctmtab/enumerator/_core.cpython-311-x86_64-linux-gnu.so", "ctmtab-0.1.0.dist-info/RECORD"]
         + [f"ctmtab/tables/{p.name}" for p in (ROOT / "tables").glob("*.ctmt")]
         + [f"ctmtab/{p.name}" for p in ROOT.glob("*.py") if p.name != "setup.py"]
-        + [f"ctmtab/{d}/{p.name}" for d in ("enumerator", "tables", "tools") for p in (ROOT / d).glob("*.py")])
+        + [f"ctmtab/{d}/{p.name}" for d in FOLDERS for p in (ROOT / d).glob("*.py")])
+
+
+def test_the_check_knows_every_package_setup_installs():
+    # a package added to setup.py but not to the check would pass a wheel that lacks it
+    text = SCRIPT.read_text()
+    assert len(FOLDERS) >= 4 and all(f'"{d}": "ctmtab/{d}"' in text for d in FOLDERS), FOLDERS
 
 
 def wheel(tmp_path, names) -> Path:
