@@ -63,7 +63,7 @@ def test_load_100k_keys(benchmark, big_table_bytes):
 def test_vectorised_lookup(benchmark, cut):
     t = load("1d-n4-m2-t107")
     if cut:  # a table cut by size serves its kept keys as fast as the whole one
-        t = t.trimmed(cut)
+        t = t.cut_at(cut)
     keys = np.random.default_rng(1).integers(0, 2, size=(1_000_000, 8)).astype(np.uint8)
     t.lookup(keys[:10])  # build the cached dense counts once
     out = benchmark(t.lookup, keys)
