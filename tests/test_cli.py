@@ -113,3 +113,12 @@ def test_the_default_cap_is_the_busy_beaver_value(states, symbols, cap, tmp_path
     r = ctm("build", "-q", "--states", states, "--symbols", symbols, cwd=tmp_path)
     assert r.returncode == 0, r.stderr
     assert [p.name for p in tmp_path.iterdir()] == [f"ctm-1d-n{states}-m{symbols}-t{cap}.ctmt"]
+
+
+def test_the_parser_loads_no_reader():
+    # every command builds the whole parser first: its help texts must not import tables/ (and
+    # numpy with it), or `ctmtab --help` and `ctmtab run` pay for the reader (0.47 s once)
+    code = ("import sys; from ctmtab.tools import cli; cli._parser(); "
+            "print(sorted(m for m in sys.modules if m.startswith(('ctmtab.tables', 'numpy'))))")
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert r.returncode == 0 and r.stdout.strip() == "[]", r.stdout + r.stderr

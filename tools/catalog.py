@@ -4,8 +4,8 @@ from __future__ import annotations
 import math
 
 from ..model.space import Space
-from ..tables import certify
-from ..tables.load import SHIPPED, SUFFIX, load, load_header, shipped
+# tables/ is imported where it is used: the command line's parser reads the constants below for
+# its help on every command, and must not pay for the reader's imports
 
 TIGHT_BITS = 0.1  # default: a certified interval at most this wide counts as tight for BDM
 
@@ -38,6 +38,9 @@ def _widths(name: str, header: dict, shapes: list) -> tuple[dict, bool]:
     """shape -> the widest certified interval (bits) among its keys, and whether the body was read.
     Where no undecided run can reach a shape the width is the same for every key, from the header;
     elsewhere it depends on the smallest count, so the table is loaded."""
+    from ..tables import certify
+    from ..tables.load import load
+
     space = header["space"]
     m, halting = space["symbols"], int(header["totals"]["halting"])
     undecided = int(header["totals"]["undecided"])
@@ -56,6 +59,8 @@ def _widths(name: str, header: dict, shapes: list) -> tuple[dict, bool]:
 
 def describe(name: str, tight: float = TIGHT_BITS) -> dict:
     """The list row of one shipped table."""
+    from ..tables.load import SHIPPED, SUFFIX, load_header
+
     header, size = load_header(name)
     space = header["space"]
     dims, m = space["dims"], space["symbols"]
@@ -89,4 +94,6 @@ def _size(k: int, dims: int):
 
 
 def catalog(tight: float = TIGHT_BITS) -> list[dict]:
+    from ..tables.load import shipped
+
     return [describe(name, tight) for name in shipped()]

@@ -717,6 +717,31 @@ def _text_cells(line: str, n: int, m: int, alphabet):
     return keytext.as_symbols(cells, m, f"line {n}", "", "fix the line")
 
 
+def _bulk_rows(lines: list, m: int, alphabet) -> dict:
+    """{line index: symbols} of the 1D lines that read in bulk, one numpy pass per line length:
+    ASCII digits below m (m <= 10), or the characters of an ASCII alphabet. Any other line is
+    left to _text_cells, which words its refusal."""
+    import numpy as np
+
+    lut = np.full(256, 255, dtype=np.uint8)
+    if alphabet is not None and alphabet.isascii():
+        lut[np.frombuffer(alphabet.encode(), dtype=np.uint8)] = np.arange(len(alphabet), dtype=np.uint8)
+    elif alphabet is None and m <= 10:
+        lut[ord("0"):ord("0") + m] = np.arange(m, dtype=np.uint8)
+    else:
+        return {}
+    by_length: dict = {}
+    for i, line in enumerate(lines):
+        if line.isascii():
+            by_length.setdefault(len(line), []).append(i)
+    out = {}
+    for length, idx in by_length.items():
+        rows = lut[np.frombuffer("".join(lines[i] for i in idx).encode(), dtype=np.uint8)].reshape(len(idx), length)
+        good = (rows != 255).all(axis=1)
+        out.update((i, row) for i, row, ok in zip(idx, rows, good) if ok)
+    return out
+
+
 def _bdm_inputs(a, t) -> list:
     """The inputs of `ctmtab bdm`: [(label, symbols)], 1D rows or 2D arrays."""
     import numpy as np
@@ -747,7 +772,9 @@ def _bdm_inputs(a, t) -> list:
         if not line.strip():
             raise CtmtabError(f"line {n} is empty; give one input per line")
     if dims == 1:
-        return [(str(n), _text_cells(line.strip(), n, m, alphabet)) for n, line in enumerate(lines, 1)]
+        fast = _bulk_rows([line.strip() for line in lines], m, alphabet)
+        return [(str(n), fast[n - 1] if n - 1 in fast else _text_cells(line.strip(), n, m, alphabet))
+                for n, line in enumerate(lines, 1)]
     rows = []
     for n, line in enumerate(lines, 1):
         if "," not in line:
