@@ -3,6 +3,7 @@ tables, lookups, BDM and verify need none of them: numpy, msgpack and zstandard 
 from __future__ import annotations
 
 import importlib
+import importlib.util
 
 from .errors import ExtraMissingError
 
@@ -18,13 +19,18 @@ def pip_command(extras) -> str:
     return f'python3 -m pip install "ctmtab[{",".join(extras)}]"'
 
 
-def require(*modules: str) -> None:
+def require(*modules: str, load: bool = True) -> None:
     """Import each module, or raise one ExtraMissingError naming every one missing, what it is
-    needed for and the pip command that installs them all."""
+    needed for and the pip command that installs them all. load=False only looks for the
+    installed packages, without importing them (matplotlib and scipy.stats take a second or two):
+    for a command's check before any work; the use site imports, and words a broken install."""
     absent, broken, missing = [], [], []
     for module in modules:
         try:
-            importlib.import_module(module)
+            if load:
+                importlib.import_module(module)
+            elif importlib.util.find_spec(module.partition(".")[0]) is None:
+                raise ImportError(name=module)
         except ImportError as exc:
             package = EXTRAS[module][0]
             missing.append(module)

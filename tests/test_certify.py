@@ -259,6 +259,7 @@ def test_shards_merge_their_certificates():
 
 # ---- holdouts
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_holdouts_are_the_undecided_nodes_1d():
     space = Space(1, 4, 2)
     t = build(space, 30, holdouts=True)

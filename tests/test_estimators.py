@@ -138,6 +138,7 @@ def ctm(*args, cwd=None):
                           cwd=cwd)
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_validate_command_json_plot_and_module_function(tmp_path):
     r = ctm("validate", "1d-n5-m2-t500", "--estimator", "ctmtab.tools.demo:switch_score", "--sizes", "5-9",
             "--json", "--plot", tmp_path / "v.png")

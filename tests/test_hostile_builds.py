@@ -354,7 +354,10 @@ def test_ctrl_c_on_a_pooled_build_prints_one_line(tmp_path, group):
     # Ctrl-C in a terminal signals the whole process group; `kill -INT` the build alone
     cmd = [sys.executable, "-m", "ctmtab", "build", "--states", "3", "--symbols", "3", "--max-steps", "20",
            "--workers", "2", "-o", str(tmp_path / "t.ctmt"), "-q"]
-    proc = subprocess.Popen(cmd, stderr=subprocess.PIPE, text=True, start_new_session=True)
+    # a child inherits an ignored SIGINT (pytest-xdist's workers ignore it), and Python then never
+    # raises KeyboardInterrupt: the build starts with the default, as from a terminal
+    proc = subprocess.Popen(cmd, stderr=subprocess.PIPE, text=True, start_new_session=True,
+                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     try:
         time.sleep(2.5)  # imported, pool started, units running
         assert proc.poll() is None, "the build ended before it could be interrupted; make it longer"

@@ -46,6 +46,7 @@ def test_within_size_headline_and_pooled_against_scipy():
     assert pooled > 0.5 > rep.spearman  # length drives the pooled figure
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_the_command_leads_with_within_sizes_and_names_the_reference(tmp_path):
     r = ctm("validate", "1d-n5-m2-t500", "--estimator", "zlib", "--sizes", "5-7")
     assert r.returncode == 0, r.stderr
@@ -63,6 +64,7 @@ def test_the_command_leads_with_within_sizes_and_names_the_reference(tmp_path):
     assert "reference CTM of a sampled table" in sampled
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_a_sampled_report_plots_error_bars(monkeypatch, tmp_path):
     t = load("1d-n4-m4-t2000-sampled")
     rep = validate(t, runs, sizes=[4])

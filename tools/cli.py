@@ -962,7 +962,7 @@ def cmd_validate(a) -> int:
     from ..tables import load
     from .validate import resolve, shapes_from_text, validate, values_from_csv
 
-    require("scipy.stats", *(["matplotlib"] if a.plot else []))  # before any work
+    require("scipy.stats", *(["matplotlib"] if a.plot else []), load=False)  # before any work
     if a.worst < 0:
         raise CtmtabError(f"--worst {a.worst} is negative; give 0 or more")
     if a.plot:
@@ -1019,7 +1019,7 @@ def cmd_plot(a) -> int:
     from ..tables import load
     from .plots import plot_table
 
-    require("matplotlib")
+    require("matplotlib", load=False)  # before any work; the plots import it
     _output_dir(a.output_dir)
     for path in plot_table(load(a.table), a.output_dir):
         print(path)
