@@ -114,7 +114,7 @@ def test_cps_refuses_a_malformed_machine():
     (Space(2, 2, 2), 20, 4096),  # 2D: no bound is proven; 4,096 is the core's largest cap
     (Space(2, 3, 2), 60, 1000),
     (Space(2, 2, 2), 128, 4096),  # from cap 128 the CPS also runs, in 2D on runs still in one row
-    (Space(2, 3, 2), 128, 2000),
+    pytest.param(Space(2, 3, 2), 128, 2000, marks=pytest.mark.ci_slow),
     pytest.param(Space(2, 4, 2), 128, 1024, marks=pytest.mark.ci_slow),
 ])
 def test_per_size_bounds_hold_against_a_longer_run(space, cap, truth):
@@ -161,6 +161,7 @@ def test_decided_weight_never_halts_later_1d_42():
     assert with_cps.groups == without.groups and with_cps.halting_nodes == 249_693  # arXiv:2509.12337
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_cps_proofs_checked_by_simulation_on_holdouts():
     """The nodes left undecided at cap 40 without CPS: each one the CPS proves must run 107 steps
     (S(4), Brady 1983) without meeting an undefined entry, by the independent simulator."""

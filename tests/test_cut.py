@@ -208,6 +208,7 @@ def test_a_size_past_any_output_keeps_everything_and_still_loads(full32):
     assert dict(back.items()) == dict(full32.items()) and problems(back) == []
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_a_sampled_table_cut_keeps_its_errors_and_reports_dropped_keys():
     s = load("1d-n4-m4-t2000-sampled")
     cut = s.cut_at(5)

@@ -136,6 +136,7 @@ def test_a_partial_shard_with_its_undecided_weight_deleted_fails_verify(files):
 
 # ---- item: a shard that claims another index is bad input, exit 2, never exit 3
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_a_shard_claiming_another_index_fails_verify_and_merge(files, tmp_path):
     def relabel(h):
         h["units"]["shard"] = [1, 3]

@@ -47,7 +47,7 @@ def _fuzz(body, examples, *strategies):
 
 # Each fuzz runs short in README's test command and at length (the counts of old) in the slow
 # lane of .ci/run: about 40, 10 and 8 s.
-test_raw_byte_mutations = _fuzz(_raw_byte_mutations, 1000, st.lists(mutation, min_size=1, max_size=4))
+test_raw_byte_mutations = _fuzz(_raw_byte_mutations, 300, st.lists(mutation, min_size=1, max_size=4))
 test_raw_byte_mutations_at_length = pytest.mark.ci_slow(
     _fuzz(_raw_byte_mutations, 7000, st.lists(mutation, min_size=1, max_size=4)))
 

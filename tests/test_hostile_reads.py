@@ -121,6 +121,7 @@ def test_dense_views_beyond_the_cache_budget_are_not_kept(t4):
 
 # ---- a table where nothing halted
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 @pytest.mark.parametrize("mode", ["exhaustive", "sampled"])
 def test_a_table_with_no_halting_run(tmp_path, mode):
     t = loads(no_halting(mode))

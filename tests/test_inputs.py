@@ -80,6 +80,7 @@ def test_an_estimator_that_raises_fails_instead_of_scoring_nothing(t4):
     assert validate(t4, lambda key: math.nan if key == "0" else len(key)).scored == t4.distinct - 1
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 @pytest.mark.parametrize("source,spec,fragment", [
     (None, ":", "names no module"),
     (None, "ctmtab.tools.validate:", "names no module"),
@@ -104,6 +105,7 @@ def test_resolve_refuses_an_empty_spec():
 
 # ---- validate --sizes and sampled tables
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_a_huge_size_range_costs_nothing(t4):
     t0 = time.perf_counter()
     assert shapes_from_text(t4, "1-100000000") == t4.shapes

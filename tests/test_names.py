@@ -77,6 +77,7 @@ def test_verify_tells_a_file_that_is_not_a_table_from_a_table_that_fails(tmp_pat
 
 # ---- no command writes over its input
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_trim_merge_export_and_plot_refuse_their_own_input(small, tmp_path):
     link = tmp_path / "link.ctmt"
     link.symlink_to(small)

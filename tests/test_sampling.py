@@ -94,6 +94,7 @@ def test_chi_square_goodness_of_fit_against_the_exact_distribution(n, cap, name)
     assert stats.chisquare(f_obs, f_exp).pvalue > 0.001
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_doubling_the_sample_halves_the_variance_and_the_reported_error_is_calibrated():
     # Measured over 150 independent seeds at N and 2N samples, for six common keys of (3,2).
     exact, keys = load("1d-n3-m2-t21"), ["0", "1", "00", "01", "000", "010"]
@@ -163,6 +164,7 @@ def test_a_table_expanded_the_older_way_is_not_mixed_in(monkeypatch):
         merge([older, table_of(sample(Space(1, 2, 3), 38, 25_000, seed=9))])
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_cli_extend_in_place_and_refusals(tmp_path):
     path = tmp_path / "s.ctmt"
     assert cli("build", "--states", 3, "--sample", 50_000, "--seed", 4, "-o", path, "-q").returncode == 0
@@ -249,6 +251,7 @@ def test_seen_counts_samples_not_images():
     assert math.isnan(t.standard_error("0123012301230123")) and t.seen("0123012301230123") == 0
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_no_deciders_and_decider_order_still_extend(tmp_path):
     path = tmp_path / "n.ctmt"
     assert cli("build", "--states", 2, "--sample", 30_000, "--deciders", "none", "-o", path, "-q").returncode == 0
@@ -302,6 +305,7 @@ def test_bad_sample_requests(tmp_path):
         assert r.returncode == 2 and fragment in r.stderr and len(r.stderr.strip().splitlines()) == 1
 
 
+@pytest.mark.ci_slow  # heavy: the slow lane of .ci/run
 def test_the_shipped_four_symbol_table():
     t = load("1d-n4-m4-t2000-sampled")
     t.min_seen = 0
