@@ -19,6 +19,8 @@ from ..model.bounds import STEP_BOUNDS
 from ..model.deciders import DECIDERS
 from ..errors import DEFAULT_MIN_SEEN, CtmtabError, OutputError, RareKeyWarning
 from ..extras import require
+from .bdm_input import read_inputs
+from .terminal import one_line as _line, printable as _printable
 
 # build's default cap: the proven busy beaver value S(n, m) (model/bounds.py) up to this many
 # steps. Longer ones are asked for by --max-steps (the exact (5,2) build takes 51 minutes on 2 cores).
@@ -261,20 +263,6 @@ def _finite(obj):
 
 def _json(obj, **kw) -> str:
     return json.dumps(_finite(obj), default=str, allow_nan=False, **kw)
-
-
-def _printable(text: str) -> str:
-    """Text from a file, safe for a terminal: control and format characters (escape sequences,
-    bidi overrides) shown as \\x.. / \\u.. escapes, never sent raw."""
-    return "".join(c if c.isprintable() or c == "\n" else
-                   (f"\\x{ord(c):02x}" if ord(c) < 0x100 else f"\\u{ord(c):04x}" if ord(c) < 0x10000
-                    else f"\\U{ord(c):08x}") for c in text)
-
-
-def _line(text) -> str:
-    """A field from a file as one printable line: a line break in it is shown as \\n, so a file
-    cannot forge lines of a report."""
-    return _printable(str(text)).replace("\n", "\\n")
 
 
 def _emit(obj, as_json: bool, text: str) -> None:
@@ -691,112 +679,6 @@ def _block_arg(text, dims: int, flag: str):
     return sizes[0] if dims == 1 else (sizes[0], sizes[-1])
 
 
-def _read_text(path: str) -> str:
-    try:
-        raw = sys.stdin.buffer.read() if path == "-" else Path(path).read_bytes()
-        return raw.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        raise CtmtabError(f"{'standard input' if path == '-' else path} is not UTF-8 text (byte {exc.start + 1}); "
-                          "give text, one input per line") from None
-
-
-def _text_cells(line: str, n: int, m: int, alphabet):
-    """One line of symbols (digits, dotted cells over 10 symbols, or alphabet characters)."""
-    from ..tables import keys as keytext
-    from .bdm import symbols_from_text
-
-    if alphabet is not None:
-        return symbols_from_text(line, alphabet, f"line {n}")
-    col = next((i for i, c in enumerate(line) if c.isalpha()), None)
-    if col is not None:
-        raise CtmtabError(f"line {n} holds the letter {line[col]!r} at column {col + 1}; give --alphabet (e.g. "
-                          f"--alphabet ACGT) to read letters as the symbols 0..{m - 1}")
-    cells = keytext.parse(line, m, f"line {n}")
-    if cells.ndim != 1:
-        raise CtmtabError(f"line {n} holds '/': give one sequence per line")
-    return keytext.as_symbols(cells, m, f"line {n}", "", "fix the line")
-
-
-def _bulk_rows(lines: list, m: int, alphabet) -> dict:
-    """{line index: symbols} of the 1D lines that read in bulk, one numpy pass per line length:
-    ASCII digits below m (m <= 10), or the characters of an ASCII alphabet. Any other line is
-    left to _text_cells, which words its refusal."""
-    import numpy as np
-
-    lut = np.full(256, 255, dtype=np.uint8)
-    if alphabet is not None and alphabet.isascii():
-        lut[np.frombuffer(alphabet.encode(), dtype=np.uint8)] = np.arange(len(alphabet), dtype=np.uint8)
-    elif alphabet is None and m <= 10:
-        lut[ord("0"):ord("0") + m] = np.arange(m, dtype=np.uint8)
-    else:
-        return {}
-    by_length: dict = {}
-    for i, line in enumerate(lines):
-        if line.isascii():
-            by_length.setdefault(len(line), []).append(i)
-    out = {}
-    for length, idx in by_length.items():
-        rows = lut[np.frombuffer("".join(lines[i] for i in idx).encode(), dtype=np.uint8)].reshape(len(idx), length)
-        good = (rows != 255).all(axis=1)
-        out.update((i, row) for i, row, ok in zip(idx, rows, good) if ok)
-    return out
-
-
-def _bdm_inputs(a, t) -> list:
-    """The inputs of `ctmtab bdm`: [(label, symbols)], 1D rows or 2D arrays."""
-    import numpy as np
-
-    from ..tables import keys as keytext
-    from .bdm import check_alphabet, symbols_from_text
-
-    m, dims = t.space.symbols, t.space.dims
-    alphabet = None if a.alphabet is None else check_alphabet(a.alphabet, m)
-    if a.input != "-" and a.input.endswith(".npy"):
-        if alphabet is not None:
-            raise CtmtabError("--alphabet reads text; a .npy array holds symbols 0..m-1 already, so leave it out")
-        try:
-            arr = np.load(a.input, allow_pickle=False)
-        except (ValueError, EOFError) as exc:
-            raise CtmtabError(f"{a.input} is not a numpy array file ({_line(exc)})") from None
-        if not isinstance(arr, np.ndarray) or arr.ndim not in (dims, dims + 1) or arr.size == 0:
-            raise CtmtabError(f"{a.input} holds an array of shape {getattr(arr, 'shape', '?')}; give a non-empty "
-                              f"{dims}D array (or a stack of them, {dims + 1}D)")
-        arr = keytext.as_symbols(arr, m, a.input, f" of this {t.space.label} table")
-        return [(str(i + 1), x) for i, x in enumerate(arr if arr.ndim == dims + 1 else arr[None])]
-    lines = [line.rstrip("\r") for line in _read_text(a.input).split("\n")]
-    while lines and not lines[-1].strip():
-        lines.pop()  # the final line break, and blank lines after the data
-    if not lines:
-        raise CtmtabError(f"{'standard input' if a.input == '-' else a.input} holds no data")
-    for n, line in enumerate(lines, 1):
-        if not line.strip():
-            raise CtmtabError(f"line {n} is empty; give one input per line")
-    if dims == 1:
-        fast = _bulk_rows([line.strip() for line in lines], m, alphabet)
-        return [(str(n), fast[n - 1] if n - 1 in fast else _text_cells(line.strip(), n, m, alphabet))
-                for n, line in enumerate(lines, 1)]
-    rows = []
-    for n, line in enumerate(lines, 1):
-        if "," not in line:
-            rows.append(_text_cells(line.strip(), n, m, alphabet))
-            continue
-        cells = [c.strip() for c in line.split(",")]
-        for col, c in enumerate(cells, 1):
-            if alphabet is None and not (c.isascii() and c.isdigit()):
-                hint = "; give --alphabet to read letters" if c.isalpha() else ""
-                raise CtmtabError(f"line {n}, column {col}: {_line(c)!r} is not a symbol 0..{m - 1}{hint}")
-            if alphabet is not None and len(c) != 1:
-                raise CtmtabError(f"line {n}, column {col}: {_line(c)!r} is not one character of the alphabet")
-        row = (symbols_from_text("".join(cells), alphabet, f"line {n}") if alphabet is not None
-               else np.array([int(c) for c in cells]))
-        rows.append(keytext.as_symbols(row, m, f"line {n}", "", "fix the line"))
-    if len({len(r) for r in rows}) > 1:
-        n = next(i for i, r in enumerate(rows, 1) if len(r) != len(rows[0]))
-        raise CtmtabError(f"line {n} has {len(rows[n - 1])} cells, line 1 has {len(rows[0])}; give a "
-                          "rectangular matrix")
-    return [("1", np.stack(rows))]
-
-
 def cmd_bdm(a) -> int:
     import warnings
 
@@ -812,7 +694,7 @@ def cmd_bdm(a) -> int:
     dims = t.space.dims
     bdm = BDM(t, _block_arg(a.block, dims, "--block"), mode=a.boundary,
               stride=_block_arg(a.stride, dims, "--stride"), on_missing="ignore")
-    inputs = _bdm_inputs(a, t)
+    inputs = read_inputs(a.input, t, a.alphabet)
     by_shape = {}
     for i, (_, x) in enumerate(inputs):
         by_shape.setdefault(x.shape, []).append(i)
