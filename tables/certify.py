@@ -199,6 +199,16 @@ def check_step_bound(steps: int, source: str, cap: int, undecided: int, space: S
                                      "machines remain")
 
 
+def open_runs(cert: Certificate | None, blanks: int, undecided: int) -> tuple[int, int]:
+    """(runs halting past the cap, runs still undecided) after the run-on: the certified bounds'
+    normalisation lies between H + the first and H + both. No run-on: (0, every undecided run)."""
+    settle = None if cert is None else cert.settle
+    if settle is None:
+        return 0, blanks * undecided
+    late, proven = settle["halting"], settle["proven"]
+    return blanks * late, blanks * (undecided - late - proven)
+
+
 def bounds(c, u_key: int, u_total: int, total: int):
     """Certified CTM bounds in bits (numpy-friendly): the true probability lies in
     [c / (H + U), (c + U_k) / (H + U_k)], H the halting runs, U all undecided runs,

@@ -91,19 +91,10 @@ class Table:
         cert = self.certificate
         return None if cert is None or cert.settle is None else cert.settle["size"]
 
-    def _open_runs(self) -> tuple[int, int]:
-        """(runs halting past the cap, runs still undecided) after the run-on: the certified
-        bounds' normalisation lies between H + the first and H + both."""
-        cert = self.certificate
-        if cert is None or cert.settle is None:
-            return 0, self.undecided_runs
-        late, proven = cert.settle["halting"], cert.settle["proven"]
-        return self.blanks * late, self.blanks * (self.undecided - late - proven)
-
     def _certified(self, shape, counts, rows=None):
         """Certified CTM bounds (low, high) of keys of one shape with these counts at the cap;
         rows (N x cells) add each key's halts past the cap where the table settled its size."""
-        late, left = self._open_runs()
+        late, left = certify.open_runs(self.certificate, self.blanks, self.undecided)
         counts = np.asarray(counts, dtype=np.float64)
         if rows is not None:
             counts = counts + self._late_counts(shape, rows)
@@ -492,7 +483,7 @@ class Table:
             with np.errstate(divide="ignore", invalid="ignore"):
                 out["standard_error"] = np.where(counts > 0, sampled.errors(self, counts, moments), np.nan)
                 out["seen"] = np.where(counts > 0, sampled.seen_of(counts, moments), 0.0)
-                rare = int(np.count_nonzero((counts > 0) & (sampled.seen_of(counts, moments) < self.min_seen)))
+                rare = int(np.count_nonzero((counts > 0) & (out["seen"] < self.min_seen)))
             if rare:
                 warnings.warn(RareKeyWarning(
                     f"{rare} of the {len(counts)} keys were seen fewer than {self.min_seen} times in this sampled "

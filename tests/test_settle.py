@@ -19,7 +19,7 @@ from hostile import load_or_refuse, with_header
 from ctmtab.enumerator import Space, build
 from ctmtab.model.symmetry import size_of
 from ctmtab.errors import InconsistentTableError, MergeError, SpaceError, TooLargeError
-from ctmtab.tables import Table, load, loads, merge, problems
+from ctmtab.tables import Table, certify, load, loads, merge, problems
 
 pytestmark = pytest.mark.core
 
@@ -92,7 +92,7 @@ def test_intervals_hold_the_truth_and_close_up():
     t = Table.from_tally(settled(1, 4, 2, 40, 12))
     plain = Table.from_tally(build(Space(1, 4, 2), 40, budget_hours=None))
     truth = load("1d-n4-m2-t107")  # exact by S(4) = 107 (Brady 1983)
-    late, left = t._open_runs()
+    late, left = certify.open_runs(t.certificate, t.blanks, t.undecided)
     floor = math.log2(1 + left / (t.total + late))  # only the normalisation stays open
     for length in range(1, 13):
         keys = np.array(list(itertools.product((0, 1), repeat=length)), dtype=np.uint8)

@@ -49,8 +49,7 @@ def _widths(name: str, header: dict, shapes: list) -> tuple[dict, bool]:
     cert = certify.parse(header, int(header["totals"]["non_halting"]), undecided, header["cap"], space["dims"],
                          Space(space["dims"], space["states"], m), header["mode"])
     if cert is not None and all(cert.reach(s) == 0 for s in shapes):
-        settle = cert.settle or {"halting": 0, "proven": 0}
-        late, left = m * settle["halting"], m * (undecided - settle["halting"] - settle["proven"])
+        late, left = certify.open_runs(cert, m, undecided)
         low, high = certify.bounds([1.0], 0, left, m * halting + late)  # the same for every count
         return {s: float(high[0] - low[0]) for s in shapes}, False
     widths = {tuple(int(x) for x in w["shape"].split("x")): w["widest"] for w in load(name).interval_widths()}
